@@ -1,0 +1,181 @@
+"""The ``sparsedemand`` command line.
+
+Every command reads and validates its input through :mod:`sparsedemand.io`,
+prints the load summary to stderr, and writes its outputs atomically. Bad
+input ends with one line ``error: ...`` and exit code 2, never a traceback.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import InputError
+from .io import Columns, FREQUENCIES, read_demand
+
+CAUTION = (
+    "Caution: these targets are decision support. For safety-critical spares follow your "
+    "organisation's policies, the applicable regulations and the judgement of qualified staff."
+)
+
+
+class Console:
+    """Where messages and progress go: stderr, silenced by ``--quiet``."""
+
+    def __init__(self, quiet: bool) -> None:
+        self.quiet = quiet
+
+    def say(self, text: str) -> None:
+        if not self.quiet:
+            click.echo(text, err=True)
+
+    def progress(self, iterable, *, label: str, length: int | None = None):
+        """A progress bar on a terminal; a plain iterator otherwise."""
+        if self.quiet or not sys.stderr.isatty():
+            return _Passthrough(iterable)
+        return click.progressbar(iterable, length=length, label=label, file=sys.stderr)
+
+
+class _Passthrough:
+    def __init__(self, iterable) -> None:
+        self.iterable = iterable
+
+    def __enter__(self):
+        return self.iterable
+
+    def __exit__(self, *exc) -> None:
+        return None
+
+
+def input_options(func):
+    """Options shared by every command that reads a demand file."""
+    options = [
+        click.argument("input_path", metavar="INPUT", type=click.Path(dir_okay=True, path_type=Path)),
+        click.option("--layout", type=click.Choice(["auto", "long", "wide"]), default="auto",
+                     show_default=True, help="Long: one row per item and period. Wide: one row per item."),
+        click.option("--item-column", default="item", show_default=True, help="Column with the item label."),
+        click.option("--period-column", default="period", show_default=True,
+                     help="Column with the period (YYYY-MM-DD, YYYY-MM, YYYY-Www or an integer)."),
+        click.option("--quantity-column", default="quantity", show_default=True, help="Column with the demand."),
+        click.option("--availability-column", default=None,
+                     help="0/1 in-stock flag or on-hand quantity (<= 0 means out of stock). "
+                          "Default: 'in_stock' or 'on_hand' when present."),
+        click.option("--location-column", default="location", show_default=True),
+        click.option("--category-column", default="category", show_default=True),
+        click.option("--price-column", default="unit_price", show_default=True,
+                     help="Unit price, for value weighting and stock value."),
+        click.option("--attribute-column", "attribute_columns", multiple=True,
+                     help="Further per-item column to keep (repeatable), e.g. a lead time."),
+        click.option("--frequency", type=click.Choice(FREQUENCIES), default=None,
+                     help="Aggregate to this bucket (not finer than the data)."),
+        click.option("--net-returns", is_flag=True, default=False,
+                     help="Net negative quantities (returns) against sales in the period, clipping at zero."),
+        click.option("--quiet", is_flag=True, default=False, help="No summary or progress on stderr."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
+
+
+def load_input(kwargs: dict, console: Console):
+    """Read the input named by the shared options; print the load summary."""
+    columns = Columns(
+        item=kwargs.pop("item_column"),
+        period=kwargs.pop("period_column"),
+        quantity=kwargs.pop("quantity_column"),
+        availability=kwargs.pop("availability_column"),
+        location=kwargs.pop("location_column"),
+        category=kwargs.pop("category_column"),
+        unit_price=kwargs.pop("price_column"),
+        attributes=tuple(kwargs.pop("attribute_columns")),
+    )
+    panel, summary = read_demand(
+        kwargs.pop("input_path"),
+        layout=kwargs.pop("layout"),
+        columns=columns,
+        frequency=kwargs.pop("frequency"),
+        net_returns=kwargs.pop("net_returns"),
+    )
+    console.say(summary.text())
+    return panel, summary, columns
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
+@click.version_option(__version__, prog_name="sparsedemand")
+def cli() -> None:
+    """Forecast and stock slow-moving, intermittent demand.
+
+    Typical run: classify the items, forecast with the routed methods, check the
+    methods in a backtest, set stock targets, and read the report.
+    """
+
+
+# ------------------------------------------------------------------ demo
+
+
+@cli.command()
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for the demo data and every output.")
+@click.option("--data-only", is_flag=True, default=False, help="Only write the demo history.")
+@click.option("--parts", default=1200, show_default=True, type=click.IntRange(1, 200_000),
+              help="Part numbers in the invented catalogue (1 to 3 depots each).")
+@click.option("--seed", default=7, show_default=True, type=int, help="Seed of the generator.")
+@click.option("--horizon", default=28, show_default=True, type=click.IntRange(1, 3650),
+              help="Forecast horizon in days.")
+@click.option("--quiet", is_flag=True, default=False)
+def demo(out_dir: Path, data_only: bool, parts: int, seed: int, horizon: int, quiet: bool) -> None:
+    """Generate the invented parts-distributor history and run the whole job on it."""
+    from .demo import run_demo
+
+    console = Console(quiet)
+    run_demo(out_dir, parts=parts, seed=seed, horizon=horizon, data_only=data_only, say=console.say)
+
+
+# ------------------------------------------------------------------ entry point
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Console-script entry point: one-line errors, exit code 2 for bad input."""
+    try:
+        code = cli.main(args=argv, prog_name="sparsedemand", standalone_mode=False)
+    except click.exceptions.NoArgsIsHelpError as exc:  # pragma: no cover - click >= 8.2
+        click.echo(exc.ctx.get_help() if exc.ctx else str(exc), err=True)
+        sys.exit(2)
+    except click.UsageError as exc:
+        where = exc.ctx.command_path if exc.ctx is not None else "sparsedemand"
+        click.echo(f"error: {where}: {exc.format_message()} (see --help)", err=True)
+        sys.exit(2)
+    except click.ClickException as exc:
+        click.echo(f"error: {exc.format_message()}", err=True)
+        sys.exit(exc.exit_code)
+    except click.Abort:
+        click.echo("error: aborted", err=True)
+        sys.exit(1)
+    except InputError as exc:
+        click.echo(f"error: {exc}", err=True)
+        sys.exit(2)
+    except OSError as exc:
+        name = exc.filename or ""
+        click.echo(f"error: {name}{': ' if name else ''}{exc.strerror or exc}", err=True)
+        sys.exit(2)
+    except KeyboardInterrupt:
+        click.echo("error: interrupted", err=True)
+        sys.exit(130)
+    except Exception as exc:  # a bug, not bad input: keep it to one line unless asked
+        if os.environ.get("SPARSEDEMAND_DEBUG"):
+            raise
+        click.echo(
+            f"internal error: {type(exc).__name__}: {exc} "
+            "(set SPARSEDEMAND_DEBUG=1 for the traceback and please report it)",
+            err=True,
+        )
+        sys.exit(1)
+    sys.exit(code if isinstance(code, int) else 0)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()
