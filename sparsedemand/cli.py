@@ -135,6 +135,170 @@ def demo(out_dir: Path, data_only: bool, parts: int, seed: int, horizon: int, qu
     run_demo(out_dir, parts=parts, seed=seed, horizon=horizon, data_only=data_only, say=console.say)
 
 
+# ------------------------------------------------------------------ classify
+
+
+def classify_options(func):
+    """Options of the demand-pattern classifier."""
+    options = [
+        click.option("--adi-cutoff", default=1.32, show_default=True, type=float,
+                     help="Average demand interval at which demand counts as intermittent."),
+        click.option("--cv2-cutoff", default=0.49, show_default=True, type=float,
+                     help="Squared coefficient of variation of sizes at which demand counts as erratic."),
+        click.option("--rule", "class_rule", type=click.Choice(["cutoffs", "kostenko-hyndman"]),
+                     default="cutoffs", show_default=True,
+                     help="Fixed cutoffs, or the exact SBA-versus-Croston boundary."),
+        click.option("--min-demands", default=2, show_default=True, type=int,
+                     help="Fewer demands than this: too little history."),
+        click.option("--quiet-factor", default=None, type=float,
+                     help="No demand in the last (factor x ADI) periods: gone quiet."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
+
+
+def pop_classify_options(kwargs: dict) -> dict:
+    opts = {
+        "adi_cutoff": kwargs.pop("adi_cutoff"),
+        "cv2_cutoff": kwargs.pop("cv2_cutoff"),
+        "rule": kwargs.pop("class_rule"),
+        "min_demands": kwargs.pop("min_demands"),
+    }
+    quiet = kwargs.pop("quiet_factor")
+    if quiet is not None:
+        opts["quiet_factor"] = quiet
+    return opts
+
+
+@cli.command("classify")
+@input_options
+@classify_options
+@click.option("--out", "out_file", required=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="Table of patterns, one row per item (.csv or .parquet).")
+def classify_cmd(out_file: Path, **kwargs) -> None:
+    """Sort every item into smooth, erratic, intermittent or lumpy demand, and say why."""
+    from .classify import classify, pattern_summary
+    from .io import write_table
+
+    console = Console(kwargs.pop("quiet"))
+    copts = pop_classify_options(kwargs)
+    panel, _, _ = load_input(kwargs, console)
+    table = classify(panel, **copts)
+    write_table(table, out_file)
+    click.echo(_format_summary(pattern_summary(table, panel)))
+    console.say(f"wrote {out_file}")
+
+
+def _format_summary(frame) -> str:
+    return frame.to_string(float_format=lambda v: f"{v:,.3f}")
+
+
+# ------------------------------------------------------------------ forecast
+
+
+def _parse_levels(text: str) -> tuple[float, ...]:
+    try:
+        levels = tuple(float(x) for x in text.split(",") if x.strip())
+    except ValueError:
+        raise InputError(f"--quantiles must be numbers separated by commas, got {text!r}") from None
+    if not levels or any(not 0 < q < 1 for q in levels):
+        raise InputError(f"--quantiles must lie strictly between 0 and 1, got {text!r}")
+    return levels
+
+
+def forecast_options(func):
+    options = [
+        click.option("--horizon", required=True, type=int, help="Periods to forecast."),
+        click.option("--quantiles", "levels", default="0.5,0.8,0.9,0.95", show_default=True,
+                     help="Quantile levels of the predictive distribution, comma separated."),
+        click.option("--policy", "policy_file", type=click.Path(dir_okay=False, path_type=Path),
+                     default=None, help="TOML routing policy replacing rows of the default table."),
+        click.option("--overrides", "override_file", type=click.Path(dir_okay=False, path_type=Path),
+                     default=None, help="CSV of item, method and parameters that wins over the policy."),
+        click.option("--cost", type=click.Choice(["mse", "mae", "mar", "msr"]), default="mse",
+                     show_default=True, help="In-sample cost minimised when fitting smoothing constants."),
+        click.option("--selection", type=click.Choice(["policy", "holdout"]), default="policy",
+                     show_default=True,
+                     help="policy: the routing table. holdout: per pattern, the best method on the last periods."),
+        click.option("--seed", default=0, show_default=True, type=int, help="Seed for bootstrap distributions."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
+
+
+def pop_forecast_options(kwargs: dict) -> dict:
+    horizon = kwargs.pop("horizon")
+    if horizon < 1:
+        raise InputError(f"--horizon must be at least 1, got {horizon}")
+    return {
+        "horizon": horizon,
+        "levels": _parse_levels(kwargs.pop("levels")),
+        "policy": kwargs.pop("policy_file"),
+        "overrides": kwargs.pop("override_file"),
+        "cost": kwargs.pop("cost"),
+        "selection": kwargs.pop("selection"),
+        "seed": kwargs.pop("seed"),
+    }
+
+
+@cli.command("forecast")
+@input_options
+@classify_options
+@forecast_options
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for forecasts and the audit table.")
+@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
+def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
+    """Route every item to a suitable method and forecast, with an audit trail."""
+    from .io import staged_output, write_table
+    from .route import forecast
+
+    console = Console(kwargs.pop("quiet"))
+    copts = pop_classify_options(kwargs)
+    fopts = pop_forecast_options(kwargs)
+    policy = _load_rules(fopts, kwargs)
+    panel, _, columns = load_input(kwargs, console)
+    overrides = _load_overrides(fopts, columns)
+    horizon = fopts.pop("horizon")
+    result = forecast(panel, horizon, policy=policy, overrides=overrides, classify_options=copts,
+                      progress=console.progress, **{k: v for k, v in fopts.items()
+                                                    if k not in ("policy", "overrides")})
+    with staged_output(out_dir) as stage:
+        write_table(result.table(), stage / f"forecasts.{fmt}")
+        write_table(result.audit, stage / f"audit.{fmt}")
+        if result.selection is not None:
+            write_table(result.selection, stage / f"selection.{fmt}")
+    click.echo(_format_summary(_routing_summary(result.audit)))
+    console.say(f"wrote {out_dir}/forecasts.{fmt} and {out_dir}/audit.{fmt}")
+
+
+def _load_rules(fopts: dict, kwargs: dict):
+    from .route import load_policy
+
+    path = fopts.get("policy")
+    return load_policy(path) if path is not None else None
+
+
+def _load_overrides(fopts: dict, columns):
+    from .route import load_overrides
+
+    path = fopts.get("overrides")
+    return load_overrides(path) if path is not None else None
+
+
+def _routing_summary(audit):
+    import pandas as pd
+
+    counts = audit.groupby(["pattern", "method"]).size().rename("items")
+    warned = audit["warnings"].astype(bool).groupby([audit["pattern"], audit["method"]]).sum()
+    table = pd.concat([counts, warned.rename("with_warnings")], axis=1).reset_index()
+    total = pd.DataFrame([{"pattern": "all", "method": "", "items": int(counts.sum()),
+                           "with_warnings": int(warned.sum())}])
+    return pd.concat([table, total], ignore_index=True).set_index(["pattern", "method"])
+
+
 # ------------------------------------------------------------------ entry point
 
 

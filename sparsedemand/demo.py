@@ -189,3 +189,65 @@ def make_demo(spec: DemoSpec | None = None) -> pd.DataFrame:
     table.insert(2, "quantity", np.concatenate(cols["quantity"]))
     table.insert(3, "in_stock", np.concatenate(cols["in_stock"]))
     return table
+
+
+def run_demo(
+    out_dir,
+    *,
+    parts: int = 1200,
+    seed: int = 7,
+    horizon: int = 28,
+    data_only: bool = False,
+    say=print,
+) -> dict:
+    """Write the demo history to ``out_dir/demand.csv`` and run the whole job on it.
+
+    The job reads the file back through the same loader a user's file goes
+    through, then classifies, forecasts, backtests, sets stock targets and
+    writes the report. Returns the paths written.
+
+    Examples
+    --------
+    >>> run_demo("demo-output", parts=50)  # doctest: +SKIP
+    """
+    from pathlib import Path
+
+    from .io import Columns, read_demand, staged_output, write_table
+
+    out = Path(out_dir)
+    table = make_demo(DemoSpec(parts=parts, seed=seed))
+    written = {}
+    with staged_output(out) as stage:
+        write_table(table, stage / "demand.csv")
+    written["demand"] = out / "demand.csv"
+    say(f"wrote the demo history: {out / 'demand.csv'} ({len(table):,} rows)")
+    if data_only:
+        return written
+    columns = Columns(attributes=("lead_time", "safety_critical"))
+    panel, summary = read_demand(out / "demand.csv", columns=columns)
+    say(summary.text())
+    written.update(run_job(panel, out, horizon=horizon, seed=seed, say=say))
+    return written
+
+
+def run_job(panel, out, *, horizon: int, seed: int, say=print) -> dict:
+    """Classify, forecast, backtest, stock and report on one panel (the demo's chain)."""
+    from pathlib import Path
+
+    from .classify import classify, pattern_summary
+    from .io import staged_output, write_table
+    from .route import forecast
+
+    out = Path(out)
+    written = {}
+    classes = classify(panel)
+    say("patterns:\n" + pattern_summary(classes, panel).to_string(float_format=lambda v: f"{v:,.3f}"))
+    result = forecast(panel, horizon, seed=seed)
+    with staged_output(out) as stage:
+        write_table(classes, stage / "patterns.csv")
+        write_table(result.table(), stage / "forecasts.csv")
+        write_table(result.audit, stage / "audit.csv")
+    for name in ("patterns", "forecasts", "audit"):
+        written[name] = out / f"{name}.csv"
+    say(f"wrote {', '.join(str(p) for p in written.values())}")
+    return written
