@@ -73,6 +73,8 @@ __all__ = [
     "demand_pmfs",
     "grid_sizes",
     "total_moments",
+    "period_totals",
+    "checked_params",
     "size_family",
     "distribution_labels",
     "item_seeds",
@@ -150,8 +152,18 @@ def _mean_matrix(mean, n: int | None = None) -> np.ndarray:
     return np.ascontiguousarray(m)
 
 
-def _total_mean(mean: np.ndarray, periods: np.ndarray) -> np.ndarray:
-    """Sum of the per-step means over the first ``periods`` steps (last step repeated beyond the horizon)."""
+def period_totals(mean, periods) -> np.ndarray:
+    """Sum of the per-step forecast means over the first ``periods`` steps, per item.
+
+    Steps beyond the forecast horizon repeat the last step's mean.
+
+    Examples
+    --------
+    >>> period_totals(np.array([[1.0, 2.0]]), np.array([3])).tolist()
+    [5.0]
+    """
+    mean = _mean_matrix(mean)
+    periods = _per_item(periods, mean.shape[0], name="periods", integer=True, minimum=0)
     h = mean.shape[1]
     csum = np.concatenate([np.zeros((mean.shape[0], 1)), np.cumsum(mean, axis=1)], axis=1)
     inside = np.minimum(periods, h)
@@ -159,8 +171,22 @@ def _total_mean(mean: np.ndarray, periods: np.ndarray) -> np.ndarray:
     return csum[rows, inside] + np.maximum(periods - h, 0) * mean[:, -1]
 
 
+def checked_params(kind: str, dist_params: Mapping | None, mean, *, items=None) -> dict:
+    """Per-item parameter arrays for ``kind``, checked (one-line errors naming parameter and item).
+
+    NaN parameters are accepted only for items whose first-step forecast mean
+    is 0; they are replaced by values giving all mass on 0.
+
+    Examples
+    --------
+    >>> checked_params("zip", {"pi": [np.nan], "lam": [np.nan]}, [0.0])
+    {'pi': array([1.]), 'lam': array([0.])}
+    """
+    mean = _mean_matrix(mean)
+    return _params(kind, dist_params, mean.shape[0], mean[:, 0], items)
+
+
 def _params(kind: str, dist_params: Mapping | None, n: int, mean0: np.ndarray, items) -> dict:
-    """Per-item parameter arrays for ``kind``, checked; NaN allowed only where no demand is expected."""
     if kind not in KINDS:
         raise InputError(f"unknown distribution kind {kind!r}; expected one of {', '.join(KINDS)}")
     dist_params = {} if dist_params is None else dist_params
@@ -285,7 +311,7 @@ def total_moments(kind: str, dist_params: Mapping | None, mean, *, periods, item
     mean = _mean_matrix(mean)
     n_items = mean.shape[0]
     n = _per_item(periods, n_items, name="periods", integer=True, minimum=0).astype(np.float64)
-    total = _total_mean(mean, n.astype(np.int64))
+    total = period_totals(mean, n.astype(np.int64))
     prm = _params(kind, dist_params, n_items, mean[:, 0], items)
     if kind in ("compound", "zip", "zinb"):
         return _mixture_moments(*_mixture_inputs(kind, prm), n)
@@ -794,9 +820,9 @@ def demand_pmfs(
             if kind in ("compound", "zip", "zinb"):
                 rows.append(_mixture_rows(kind, prm, n, cap))
             elif kind == "normal":
-                rows.append(_normal_rows(_total_mean(mean, n), prm["sigma"] * np.sqrt(n), cap))
+                rows.append(_normal_rows(period_totals(mean, n), prm["sigma"] * np.sqrt(n), cap))
             else:
-                rows.append(_point_rows(_total_mean(mean, n), cap))
+                rows.append(_point_rows(period_totals(mean, n), cap))
     return rows if ragged else [pad_rows(r) for r in rows]
 
 
