@@ -153,6 +153,8 @@ def load_frame(path: str | os.PathLike, *, text_columns: tuple[str, ...] = ()) -
     name = str(path)
     if not p.exists():
         raise InputError(f"{name}: no such file")
+    if p.is_file() and p.stat().st_size == 0:
+        raise InputError(f"{name}: the file is empty")
     suffix = p.suffix.lower()
     if p.is_dir() or suffix in (".parquet", ".pq"):
         try:
@@ -161,17 +163,29 @@ def load_frame(path: str | os.PathLike, *, text_columns: tuple[str, ...] = ()) -
             raise InputError(f"{name}: cannot read as Parquet ({_first_line(exc)})") from None
     if suffix not in (".csv", ".txt", ".gz", ".tsv"):
         raise InputError(f"{name}: unknown file type {suffix!r} (use .csv or .parquet)")
-    if p.stat().st_size == 0:
-        raise InputError(f"{name}: the file is empty")
     sep = "\t" if suffix == ".tsv" else ","
     try:
-        header = pd.read_csv(p, sep=sep, nrows=0)
-        dtypes = {c: str for c in text_columns if c in header.columns}
-        return pd.read_csv(p, sep=sep, dtype=dtypes, keep_default_na=True)
+        # The raw header: pandas would silently rename a repeated column to "name.1".
+        header = pd.read_csv(p, sep=sep, header=None, nrows=1, dtype=str).iloc[0]
+        names = [str(c) for c in header if isinstance(c, str)]
+        repeated = pd.Index(names)[pd.Index(names).duplicated()]
+        if len(repeated):
+            raise InputError(f"{name}: column {repeated[0]!r} appears twice in the header")
+        dtypes = {c: str for c in text_columns if c in names}
+        frame = pd.read_csv(p, sep=sep, dtype=dtypes, keep_default_na=True)
     except pd.errors.EmptyDataError:
         raise InputError(f"{name}: the file is empty") from None
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
+        if isinstance(exc, InputError):
+            raise
         raise InputError(f"{name}: cannot read as CSV ({_first_line(exc)})") from None
+    if not isinstance(frame.index, pd.RangeIndex):
+        # pandas takes the first field as an index when data rows are longer than the header.
+        raise InputError(
+            f"{name}, row 1: more fields than the header's {len(frame.columns)} columns "
+            "(check the separator and quoting)"
+        )
+    return frame
 
 
 def read_demand(
@@ -209,7 +223,10 @@ def read_demand(
     >>> panel, summary = read_demand("sales.csv")  # doctest: +SKIP
     """
     columns = columns or Columns()
-    frame = load_frame(path, text_columns=(columns.item, columns.period))
+    # Labels and text attributes stay text, so "007" keeps its leading zeros.
+    frame = load_frame(
+        path, text_columns=(columns.item, columns.period, columns.location, columns.category)
+    )
     return _from_frame(
         frame,
         source=str(path),
@@ -348,6 +365,15 @@ def _parse_periods(values, source: str, column: str, row_offset: int = 1) -> _Ca
     if (codes < 0).any():
         row = int(np.flatnonzero(codes < 0)[0]) + row_offset
         raise InputError(f"{source}, row {row}: missing {column}")
+    if len(uniques) and all(isinstance(u, pd.Period) for u in uniques):
+        try:
+            per = pd.PeriodIndex(list(uniques))
+        except (TypeError, ValueError):
+            freqs = list(dict.fromkeys(u.freqstr for u in uniques))
+            raise InputError(
+                f"{source}: mixed frequencies in {column}: {', '.join(freqs)}; use one calendar per file"
+            ) from None
+        return _from_period_objects(pd.Series(per.take(codes)), source, column)
     if len(uniques) and not isinstance(uniques[0], str):
         # date objects from Parquet, or mixed Python objects
         try:
@@ -365,15 +391,18 @@ def _parse_periods(values, source: str, column: str, row_offset: int = 1) -> _Ca
     if bad.size:
         row = int(np.flatnonzero(codes == bad[0])[0]) + row_offset
         raise InputError(f"{source}, row {row}: cannot read {column} {labels[bad[0]]!r} ({_EXPECTED})")
-    present = sorted(set(kinds), key=lambda k: ["integer", "day", "week", "month"].index(k))
-    if len(present) > 1:
-        examples = [labels[np.flatnonzero(kinds == k)[0]] for k in present]
-        row = int(np.flatnonzero(codes == np.flatnonzero(kinds == present[1])[0])[0]) + row_offset
-        pairs = ", ".join(f"'{e}' ({k})" for e, k in zip(examples, present))
+    # uniques come in order of first appearance: the first label of another kind
+    # than the first row's is the earliest row that breaks the calendar.
+    other = np.flatnonzero(kinds != kinds[0])
+    if other.size:
+        row = int(np.flatnonzero(codes == other[0])[0]) + row_offset
+        first_row = int(np.flatnonzero(codes == 0)[0]) + row_offset
         raise InputError(
-            f"{source}, row {row}: mixed frequencies in {column}: {pairs}; use one calendar per file"
+            f"{source}, row {row}: mixed frequencies in {column}: '{labels[other[0]]}' "
+            f"({kinds[other[0]]}) after '{labels[0]}' ({kinds[0]}) in row {first_row}; "
+            "use one calendar per file"
         )
-    kind = present[0]
+    kind = kinds[0]
     if kind == "integer":
         return _from_integers(labels.astype(np.int64).to_numpy()[codes])
     try:
@@ -426,14 +455,14 @@ def _from_dates(dates: pd.Series, source: str, column: str, row_offset: int) -> 
         gaps = np.diff(uniq)
         if (stamps.day == 1).all() and gaps.min() >= 28:
             native = "month"
-        elif len(set(stamps.dayofweek)) == 1 and (gaps % 7 == 0).all():
+        elif len(set(stamps.day_of_week)) == 1 and (gaps % 7 == 0).all():
             native = "week"
     if native == "day":
         lo = int(uniq[0])
         periods = pd.period_range(stamps[0], periods=int(uniq[-1]) - lo + 1, freq="D")
         return _Calendar(codes=days - lo, periods=periods, native="day")
     if native == "week":
-        end_day = ["SUN", "MON", "TUE", "WED", "THU", "FRI", "SAT"][stamps[0].dayofweek]
+        end_day = ["SUN", "MON", "TUE", "WED", "THU", "FRI", "SAT"][stamps[0].day_of_week]
         freq = f"W-{end_day}"
     else:
         freq = "M"
@@ -531,29 +560,30 @@ def _attributes(frame, item_codes, items, columns, source, present) -> pd.DataFr
     if not names:
         return None
     out = {}
-    n_items = len(items)
+    labels = np.asarray(items, dtype=object)[item_codes]
+    first = np.unique(item_codes, return_index=True)[1]  # first row of each item
     for name in names:
-        col = frame[name]
+        col = frame[name].reset_index(drop=True)
         if name == columns.unit_price:
-            vals = _numeric(col, source=source, what="unit price", items=frame[columns.item].to_numpy())
+            vals = _numeric(col, source=source, what="unit price", items=labels)
             if (vals < 0).any():
                 row = int(np.flatnonzero(vals < 0)[0])
-                raise InputError(f"{source}, row {row + 1}: negative unit price {vals[row]:g}")
+                raise InputError(
+                    f"{source}, row {row + 1}, item {labels[row]!r}: negative unit price {vals[row]:g}"
+                )
             col = pd.Series(vals)
-        first = np.full(n_items, -1, dtype=np.int64)
-        order = np.arange(len(col))[::-1]
-        first[item_codes[order]] = order  # first row of each item
-        ref = col.to_numpy(dtype=object)[first]
-        same = pd.Series(col.to_numpy(dtype=object)) == pd.Series(ref[item_codes])
-        both_na = pd.isna(col).to_numpy() & pd.isna(pd.Series(ref[item_codes])).to_numpy()
-        clash = ~(same.to_numpy() | both_na)
+        raw = col.to_numpy(dtype=object)
+        ref = raw[first][item_codes]
+        same = (pd.Series(raw) == pd.Series(ref)).to_numpy()
+        both_na = pd.isna(raw) & pd.isna(ref)
+        clash = ~(same | both_na)
         if clash.any():
             row = int(np.flatnonzero(clash)[0])
             raise InputError(
-                f"{source}, row {row + 1}, item {items[item_codes[row]]!r}: {name} "
-                f"{col.iloc[row]!r} differs from {ref[item_codes[row]]!r} on the item's first row"
+                f"{source}, row {row + 1}, item {labels[row]!r}: {name} "
+                f"{_plain(raw[row])!r} differs from {_plain(ref[row])!r} on the item's first row"
             )
-        out[name] = ref
+        out[name] = col.iloc[first].to_numpy()  # keeps the column's type (integer lead times)
     attrs = pd.DataFrame(out, index=pd.Index(items, name="item"))
     if columns.unit_price in attrs:
         attrs[columns.unit_price] = attrs[columns.unit_price].astype(np.float64)
@@ -577,42 +607,47 @@ def _read_long(frame, source, columns, frequency, net_returns):
         )
     cal = _parse_periods(frame[columns.period], source, columns.period)
     bucket_of, periods, keep_bucket = _rebucket(cal, frequency, source, summary)
-    bucket = bucket_of[cal.codes]
     avail_name = _availability_column(frame, columns, source)
     avail_rows = None
     if avail_name is not None:
         avail_rows = _numeric(frame[avail_name], source=source, what=avail_name, items=labels) > 0
     attributes = _attributes(frame, item_codes, items, columns, source, set(frame.columns))
 
-    n_items, n_periods = len(items), len(periods)
-    flat = item_codes * n_periods + bucket
-    size = n_items * n_periods
-    values = np.bincount(flat, weights=qty, minlength=size).reshape(n_items, n_periods)
-    # Rows merged: duplicates of the same item and input period (not aggregation).
-    raw_flat = item_codes * len(cal.periods) + cal.codes
-    raw_counts = np.bincount(raw_flat, minlength=n_items * len(cal.periods))
-    summary.rows_merged = int(len(frame) - np.count_nonzero(raw_counts))
-    counts = np.bincount(flat, minlength=size).reshape(n_items, n_periods)
+    # Everything is settled on the input calendar first (fill, merge, net, availability),
+    # then summed into buckets, so a coarser load equals the finer panel added up.
+    n_items, n_native = len(items), len(cal.periods)
+    size = n_items * n_native
+    raw_flat = item_codes * n_native + cal.codes
+    counts = np.bincount(raw_flat, minlength=size).reshape(n_items, n_native)
     occupied = counts > 0
+    summary.rows_merged = int(len(frame) - np.count_nonzero(counts))
     introduced = np.where(occupied.any(axis=1), occupied.argmax(axis=1), 0).astype(np.int64)
-    available = None
-    if avail_rows is not None:
-        hits = np.bincount(flat, weights=avail_rows, minlength=size).reshape(n_items, n_periods)
-        available = (hits > 0) | ~occupied  # a period with no row has no stock-out record
+    summary.zeros_filled = int((n_native - introduced).sum() - occupied.sum())
+    values = np.bincount(raw_flat, weights=qty, minlength=size).reshape(n_items, n_native)
     if net_returns:
         negative = values < 0
         summary.returns_clipped = int(negative.sum())
         values[negative] = 0.0
+    available = None
+    if avail_rows is not None:
+        hits = np.bincount(raw_flat, weights=avail_rows, minlength=size).reshape(n_items, n_native)
+        available = (hits > 0) | ~occupied  # a period with no row has no stock-out record
+    if len(periods) != n_native:
+        starts = np.flatnonzero(np.r_[True, np.diff(bucket_of) > 0])
+        values = np.add.reduceat(values, starts, axis=1)
+        intro_bucket = bucket_of[introduced]
+        if available is not None:
+            # Available if any sub-period in the item's span was; buckets before it count as in stock.
+            before = np.arange(n_native)[None, :] < introduced[:, None]
+            available = np.logical_or.reduceat(available & ~before, starts, axis=1)
+            available |= np.arange(len(periods))[None, :] < intro_bucket[:, None]
+        introduced = intro_bucket
     if not keep_bucket.all():
         values = values[:, keep_bucket]
-        occupied = occupied[:, keep_bucket]
         available = None if available is None else available[:, keep_bucket]
         periods = periods[keep_bucket]
         shift = int(np.argmax(keep_bucket))
         introduced = np.clip(introduced - shift, 0, len(periods) - 1)
-    n_periods = len(periods)
-    span = n_periods - introduced
-    summary.zeros_filled = int(span.sum() - occupied.sum()) if frequency is None else 0
     panel = DemandPanel(
         values,
         items=pd.Index(items, name="item"),
@@ -645,9 +680,12 @@ def _read_wide(frame, source, columns, frequency):
     if not period_cols:
         raise InputError(f"{source}: no period columns besides '{columns.item}'")
     for c in period_cols:
+        if isinstance(c, pd.Period):
+            continue  # the columns of DemandPanel.to_wide()
         if _label_kind(str(c).strip()) is None and not isinstance(c, (int, np.integer)):
             raise InputError(f"{source}: column {str(c)!r} is not a period ({_EXPECTED})")
-    cal = _parse_periods(pd.Series([str(c).strip() for c in period_cols]), source, "period column")
+    names = [c if isinstance(c, pd.Period) else str(c).strip() for c in period_cols]
+    cal = _parse_periods(pd.Series(names, dtype=object), source, "period column")
     if len(np.unique(cal.codes)) != len(cal.codes):
         raise InputError(f"{source}: the same period appears in two columns")
     block = frame[period_cols]
@@ -720,6 +758,11 @@ def _finish(summary: LoadSummary, panel: DemandPanel, avail_name) -> LoadSummary
     return summary
 
 
+def _plain(value):
+    """A numpy scalar as the plain Python value, for readable messages."""
+    return value.item() if isinstance(value, np.generic) else value
+
+
 def _first_line(exc: BaseException) -> str:
     text = str(exc).strip().splitlines()
     return text[0] if text else type(exc).__name__
@@ -761,6 +804,7 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike, *, index: bool = F
             frame.to_csv(tmp, index=index)
         else:
             frame.to_parquet(tmp, index=index)
+        os.chmod(tmp, _plain_file_mode())
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
@@ -777,12 +821,20 @@ def write_text(text: str, path: str | os.PathLike) -> Path:
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
+        os.chmod(tmp, _plain_file_mode())
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
     return target
+
+
+def _plain_file_mode() -> int:
+    """Permissions a plain ``open()`` would give (mkstemp makes owner-only files)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
 
 
 def _printable(frame: pd.DataFrame) -> pd.DataFrame:
@@ -800,7 +852,9 @@ def _printable(frame: pd.DataFrame) -> pd.DataFrame:
 def staged_output(out_dir: str | os.PathLike) -> Iterator[Path]:
     """Collect a command's output files in a staging folder, then move them into place.
 
-    Nothing reaches ``out_dir`` unless the whole block succeeds.
+    Nothing reaches ``out_dir`` unless the whole block succeeds; if moving a
+    file into place fails, the files already moved are taken back and the
+    files they replaced restored, so ``out_dir`` is left as it was.
 
     Examples
     --------
@@ -814,20 +868,59 @@ def staged_output(out_dir: str | os.PathLike) -> Iterator[Path]:
     stage = Path(tempfile.mkdtemp(prefix=f".{target.name}.", dir=target.parent))
     try:
         yield stage
-        target.mkdir(parents=True, exist_ok=True)
-        for item in sorted(stage.rglob("*"), key=lambda p: len(p.parts)):
-            rel = item.relative_to(stage)
-            dest = target / rel
-            if item.is_dir():
-                if dest.exists() and not dest.is_dir():
-                    raise InputError(f"--out {target}: {rel} exists and is not a folder")
-                if dest.is_dir() and any(dest.iterdir()) and _is_dataset(item):
-                    shutil.rmtree(dest)
-                dest.mkdir(parents=True, exist_ok=True)
-            else:
-                os.replace(item, dest)
+        _move_into(stage, target)
     finally:
         shutil.rmtree(stage, ignore_errors=True)
+
+
+def _move_into(stage: Path, target: Path) -> None:
+    """Move the staged tree into ``target``; if any step fails, undo the steps taken."""
+    undo: list = []  # callables, run newest first
+    backup = None
+    try:
+        if not target.exists():
+            target.mkdir(parents=True)
+            undo.append(lambda: shutil.rmtree(target, ignore_errors=True))
+        backup = Path(tempfile.mkdtemp(prefix=f".{target.name}.old.", dir=target.parent))
+        _merge(stage, target, backup, undo)
+    except BaseException:
+        for step in reversed(undo):
+            with contextlib.suppress(OSError):
+                step()
+        raise
+    finally:
+        if backup is not None:
+            shutil.rmtree(backup, ignore_errors=True)
+
+
+def _merge(source: Path, dest_dir: Path, backup: Path, undo: list) -> None:
+    """Move ``source``'s entries into ``dest_dir``; a Parquet dataset folder replaces the old one."""
+    for item in sorted(source.iterdir()):
+        dest = dest_dir / item.name
+        if item.is_dir() and not _is_dataset(item):
+            if dest.exists() and not dest.is_dir():
+                raise InputError(f"--out {dest}: exists and is not a folder")
+            if not dest.exists():
+                dest.mkdir()
+                undo.append(lambda d=dest: shutil.rmtree(d, ignore_errors=True))
+            _merge(item, dest, backup, undo)
+            continue
+        if dest.exists():
+            if dest.is_dir() != item.is_dir():
+                kind = "a folder" if dest.is_dir() else "a file"
+                raise InputError(f"--out {dest}: exists and is {kind}")
+            saved = backup / f"{len(undo)}-{item.name}"
+            os.replace(dest, saved)
+            undo.append(lambda d=dest, s=saved: os.replace(s, d))
+        os.replace(item, dest)
+        undo.append(lambda d=dest: _remove(d))
+
+
+def _remove(path: Path) -> None:
+    if path.is_dir():
+        shutil.rmtree(path)
+    else:
+        path.unlink()
 
 
 def _is_dataset(folder: Path) -> bool:
