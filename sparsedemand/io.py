@@ -39,7 +39,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .panel import DemandPanel
+from .panel import DemandPanel, _plain
 
 __all__ = [
     "Columns",
@@ -756,11 +756,6 @@ def _finish(summary: LoadSummary, panel: DemandPanel, avail_name) -> LoadSummary
     summary.unavailable_share = info["unavailable_share"]
     summary.availability_column = avail_name
     return summary
-
-
-def _plain(value):
-    """A numpy scalar as the plain Python value, for readable messages."""
-    return value.item() if isinstance(value, np.generic) else value
 
 
 def _first_line(exc: BaseException) -> str:

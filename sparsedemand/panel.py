@@ -40,6 +40,24 @@ def first_demand_offsets(values: np.ndarray) -> np.ndarray:
     return offsets
 
 
+def _plain(value):
+    """A numpy scalar as the plain Python value, for readable messages."""
+    return value.item() if isinstance(value, np.generic) else value
+
+
+def _check_calendar(periods: pd.Index) -> None:
+    """Periods must be consecutive steps of one day, week or month (or integers)."""
+    if isinstance(periods, pd.RangeIndex):
+        if len(periods) > 1 and periods.step != 1:
+            raise InputError(f"integer periods must be consecutive, got a step of {periods.step}")
+        return
+    code = periods.freqstr
+    if not (code == "D" or code == "M" or code.startswith("W-")):
+        raise InputError(f"periods must be day, week or month periods, got frequency {code!r}")
+    if len(periods) > 1 and not (np.diff(periods.asi8) == 1).all():
+        raise InputError("periods must be consecutive, in order and without gaps")
+
+
 @dataclass(frozen=True, eq=False)
 class DemandPanel:
     """Demand for many items over one shared calendar.
@@ -86,25 +104,32 @@ class DemandPanel:
     start: np.ndarray = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
-        values = np.ascontiguousarray(self.values, dtype=np.float64)
+        try:
+            values = np.ascontiguousarray(self.values, dtype=np.float64)
+        except (TypeError, ValueError):
+            raise InputError("demand values must be numbers") from None
         if values.ndim != 2:
             raise InputError(f"demand values must be 2-D (items x periods), got {values.ndim}-D")
         n_items, n_periods = values.shape
-        if not np.isfinite(values).all():
-            raise InputError("demand values contain NaN or infinite entries")
-        if (values < 0).any():
-            raise InputError("demand values contain negative entries")
         items = pd.Index(self.items)
         if len(items) != n_items:
             raise InputError(f"{len(items)} item labels for {n_items} rows of demand")
         if items.has_duplicates:
             dup = items[items.duplicated()][0]
-            raise InputError(f"duplicate item label {dup!r}")
+            raise InputError(f"duplicate item label {_plain(dup)!r}")
         periods = self.periods
         if not isinstance(periods, (pd.PeriodIndex, pd.RangeIndex)):
             raise InputError("periods must be a pandas PeriodIndex or RangeIndex")
         if len(periods) != n_periods:
             raise InputError(f"{len(periods)} period labels for {n_periods} columns of demand")
+        _check_calendar(periods)
+        for bad, what in ((~np.isfinite(values), "NaN or infinite"), (values < 0, "negative")):
+            if bad.any():
+                r, c = np.argwhere(bad)[0]
+                raise InputError(
+                    f"demand values contain {what} entries: {values[r, c]:g} for item "
+                    f"{_plain(items[r])!r}, period {periods[c]}"
+                )
         available = self.available
         if available is not None:
             available = np.ascontiguousarray(available, dtype=np.bool_)
@@ -114,11 +139,23 @@ class DemandPanel:
                 )
         attributes = self.attributes
         if attributes is not None:
+            if attributes.index.has_duplicates:
+                dup = attributes.index[attributes.index.duplicated()][0]
+                raise InputError(f"attributes list item {_plain(dup)!r} more than once")
             attributes = attributes.reindex(items)
         introduced = self.introduced
         if introduced is None:
             introduced = np.zeros(n_items, dtype=np.int64)
         introduced = np.ascontiguousarray(introduced, dtype=np.int64)
+        if introduced.shape != (n_items,):
+            raise InputError(f"introduced has shape {introduced.shape}, expected one offset for {n_items} items")
+        outside = (introduced < 0) | (introduced >= max(n_periods, 1))
+        if outside.any():
+            r = int(np.flatnonzero(outside)[0])
+            raise InputError(
+                f"introduced offset {introduced[r]} for item {_plain(items[r])!r} "
+                f"is outside the {n_periods} periods"
+            )
         object.__setattr__(self, "values", values)
         object.__setattr__(self, "items", items)
         object.__setattr__(self, "available", available)
@@ -183,7 +220,7 @@ class DemandPanel:
                 idx = self.items.get_indexer(rows)
                 if (idx < 0).any():
                     missing = rows[idx < 0][0]
-                    raise InputError(f"unknown item {missing!r}")
+                    raise InputError(f"unknown item {_plain(missing)!r}")
         return DemandPanel(
             self.values[idx],
             items=self.items[idx],
