@@ -77,8 +77,8 @@ STOCK_CAUTION: str = (
     "of qualified staff."
 )
 
-#: Dense cells per working block (items x grid x horizons).
-_CELL_BUDGET = 1 << 23
+#: Cells per working block (items x grid x horizons); bounds memory whatever the mix of volumes.
+_CELL_BUDGET = 1 << 21
 _SLACK = 1e-12
 
 
@@ -400,7 +400,7 @@ def _distribution_targets(kind, params, mean, L, R, Q, target_kind, target, *, h
 
 
 # --------------------------------------------------------------------------- main entry
-def _history_arrays(history, n: int):
+def _history_panel(history, n: int):
     if history is None:
         return None
     from .panel import DemandPanel, as_panel
@@ -408,7 +408,7 @@ def _history_arrays(history, n: int):
     panel = history if isinstance(history, DemandPanel) else as_panel(history, name="history")
     if panel.n_items != n:
         raise InputError(f"history has {panel.n_items} items, the forecast has {n}")
-    return panel.values, panel.start, panel.mask()
+    return panel
 
 
 def stock_targets(
@@ -497,9 +497,10 @@ def stock_targets(
     """
     mean, kind, params, method = _unpack(forecast)
     n = mean.shape[0]
-    hist = _history_arrays(history, n)
+    panel = _history_panel(history, n)
+    hist = None if panel is None else (panel.values, panel.start, panel.mask())
     if items is None:
-        items = history.items if hasattr(history, "items") and hist is not None else pd.RangeIndex(n)
+        items = pd.RangeIndex(n) if panel is None else panel.items
     items = pd.Index(items)
     if len(items) != n:
         raise InputError(f"{len(items)} item labels for {n} forecast rows")

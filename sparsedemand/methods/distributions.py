@@ -721,12 +721,12 @@ def _histogram_rows(totals, cap):
             top = max(top, totals[i, s])
         offsets[i + 1] = offsets[i] + min(top, cap - 1) + 1
     data = np.zeros(offsets[n_rows], dtype=np.float64)
-    share = 1.0 / n_samples
     for i in range(n_rows):
         o = offsets[i]
         last = offsets[i + 1] - o - 1
         for s in range(n_samples):
-            data[o + min(totals[i, s], last)] += share
+            data[o + min(totals[i, s], last)] += 1.0  # exact counts, then one division
+    data /= n_samples
     return data, offsets
 
 
