@@ -1,0 +1,276 @@
+"""Temporal aggregation: ADIDA and IMAPA.
+
+ADIDA (Nikolopoulos, Syntetos, Boylan, Petropoulos & Assimakopoulos 2011,
+Journal of the Operational Research Society 62:544-554): sum the trimmed,
+available history into non-overlapping buckets of ``level`` periods, forecast
+the bucket series with a smoothing method, and spread the bucket forecast
+evenly, ``F / level`` per period. Buckets are aligned to the end of the
+history so the most recent bucket is complete; the incomplete oldest
+periods are dropped and leading empty buckets trimmed. The default level is
+the item's mean inter-demand interval (periods / demands), rounded, at
+least 1; a level longer than the history is cut to the history's length.
+
+IMAPA (Petropoulos & Kourentzes 2015, Journal of the Operational Research
+Society 66:914-924): the ADIDA forecasts at every level ``1 .. max_level``
+averaged with equal weights. Here one smoothing method serves every level
+(``method=``) and the default ``max_level`` is the item's rounded mean
+inter-demand interval, at least 2.
+
+The predictive distribution is the compound one: the forecast mean is split
+into a demand probability ``p = mean / s`` and a size ``s``, the item's mean
+non-zero size (``p`` capped at 1, then ``s = mean``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from ._fitting import CROSTON, SBA, SBJ, SES, smooth_fit_item
+from ._input import (
+    MethodFit,
+    PanelArrays,
+    check_bounds,
+    check_choice,
+    check_constant,
+    check_cost,
+    check_count,
+    compound_params,
+    constant_mean,
+    run_public,
+)
+from .events import run_in_threads, size_moments
+from .optimize import STATE_SIZE
+
+__all__ = ["adida", "imapa", "aggregate_item", "AGGREGATE_METHODS"]
+
+AGGREGATE_METHODS = ("sba", "croston", "sbj", "ses")
+
+
+@njit(cache=True, nogil=True)
+def aggregate_item(pos, size, n, level, out_pos, out_size):
+    """Bucket one item's demands; return (demands, periods) of the bucket series.
+
+    The bucket series is written to ``out_pos``/``out_size`` trimmed so its
+    first demand is at 0. Returns (0, 0) when no complete bucket has demand.
+    """
+    n_buckets = n // level
+    offset = n - n_buckets * level
+    k = 0
+    last = -1
+    for j in range(pos.shape[0]):
+        p = pos[j]
+        if p < offset:
+            continue
+        b = (p - offset) // level
+        if b == last:
+            out_size[k - 1] += size[j]
+        else:
+            out_pos[k] = b
+            out_size[k] = size[j]
+            k += 1
+            last = b
+    if k == 0:
+        return 0, 0
+    b0 = out_pos[0]
+    for j in range(k):
+        out_pos[j] -= b0
+    return k, n_buckets - b0
+
+
+@njit(cache=True, nogil=True)
+def _mean_interval_level(n, k, minimum):
+    return max(minimum, int(np.floor(n / k + 0.5)))
+
+
+@njit(cache=True, nogil=True)
+def _adida_item(method, pos, size, n, level, alpha, cost_code, lo, hi, st, bp, bs):
+    """(per-period forecast, cost, alpha) of ADIDA at one level."""
+    level = min(level, n)
+    k, nb = aggregate_item(pos, size, n, level, bp, bs)
+    if k == 0:
+        return 0.0, np.nan, np.nan
+    f, c, a, _, _, _, _ = smooth_fit_item(
+        method, bp[:k], bs[:k], nb, alpha, alpha, True, cost_code, lo, hi, st
+    )
+    return max(f, 0.0) / level, c, a
+
+
+@njit(cache=True, nogil=True)
+def _aggregate_panel(i0, i1, indptr, pos, size, length, method, alpha, cost_code, lo, hi, level,
+                     combine, out):
+    st = np.empty(STATE_SIZE)
+    for i in range(i0, i1):
+        n = length[i]
+        if n == 0:
+            out[0, i] = 0.0
+            out[1:, i] = np.nan
+            continue
+        p = pos[indptr[i]:indptr[i + 1]]
+        s = size[indptr[i]:indptr[i + 1]]
+        k = p.shape[0]
+        bp = np.empty(k, np.int64)
+        bs = np.empty(k, np.float64)
+        if not combine:
+            lv = level if level > 0 else _mean_interval_level(n, k, 1)
+            f, c, a = _adida_item(method, p, s, n, lv, alpha, cost_code, lo, hi, st, bp, bs)
+            out[0, i] = f
+            out[1, i] = c
+            out[2, i] = a
+            out[3, i] = min(lv, n)
+            continue
+        top = level if level > 0 else _mean_interval_level(n, k, 2)
+        top = min(top, n)
+        total = 0.0
+        a_sum = 0.0
+        a_count = 0
+        for lv in range(1, top + 1):
+            f, c, a = _adida_item(method, p, s, n, lv, alpha, cost_code, lo, hi, st, bp, bs)
+            total += f
+            if a == a:
+                a_sum += a
+                a_count += 1
+        out[0, i] = total / top
+        out[1, i] = np.nan
+        out[2, i] = a_sum / a_count if a_count > 0 else np.nan
+        out[3, i] = top
+
+
+_METHOD_CODE = {"sba": SBA, "croston": CROSTON, "sbj": SBJ, "ses": SES}
+
+
+def _fit_aggregate(data, horizon, name, combine, level, method, alpha, cost, bounds):
+    lv = check_count("level" if not combine else "max_level", level, allow_none=True)
+    m = check_choice("method", method, AGGREGATE_METHODS)
+    a = check_constant("alpha", alpha)
+    code = check_cost(cost)
+    lo, hi = check_bounds(bounds)
+    ev = data.events
+    out = np.empty((4, ev.n_items))
+    run_in_threads(
+        _aggregate_panel, ev.n_items, ev.indptr, ev.pos, ev.size, ev.length, _METHOD_CODE[m], a,
+        code, lo, hi, lv, combine, out,
+    )
+    mean = np.maximum(out[0], 0.0)
+    size_mean, size_var = size_moments(ev)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p = np.where(size_mean > 0, mean / size_mean, 0.0)
+    s = np.where(p > 1.0, mean, size_mean)
+    p = np.minimum(p, 1.0)
+    return MethodFit(
+        name=name,
+        mean=constant_mean(mean, horizon),
+        params={"alpha": out[2], ("max_level" if combine else "level"): out[3]},
+        cost=out[1],
+        distribution="compound",
+        dist_params=compound_params(p, s, size_var),
+    )
+
+
+def fit_adida(
+    data: PanelArrays,
+    horizon: int,
+    *,
+    level: int | None = None,
+    method: str = "sba",
+    alpha: float | None = 0.1,
+    cost: str = "mse",
+    bounds: tuple[float, float] = (0.01, 0.5),
+) -> MethodFit:
+    """Fit ADIDA for every item; the cost is that of the bucket series."""
+    return _fit_aggregate(data, horizon, "adida", False, level, method, alpha, cost, bounds)
+
+
+def fit_imapa(
+    data: PanelArrays,
+    horizon: int,
+    *,
+    max_level: int | None = None,
+    method: str = "sba",
+    alpha: float | None = 0.1,
+    cost: str = "mse",
+    bounds: tuple[float, float] = (0.01, 0.5),
+) -> MethodFit:
+    """Fit IMAPA for every item; cost NaN (a combination has no single fit), alpha averaged."""
+    return _fit_aggregate(data, horizon, "imapa", True, max_level, method, alpha, cost, bounds)
+
+
+def adida(
+    y,
+    horizon: int = 1,
+    *,
+    level: int | None = None,
+    method: str = "sba",
+    alpha: float | None = 0.1,
+    cost: str = "mse",
+    bounds: tuple[float, float] = (0.01, 0.5),
+    available=None,
+    return_params: bool = False,
+):
+    """Aggregate-disaggregate forecast (ADIDA).
+
+    Parameters
+    ----------
+    y : array-like, shape (n_periods,) or (n_items, n_periods), or DemandPanel
+        Demand; NaN marks an unavailable period. Leading zeros are trimmed.
+    horizon : int
+        Steps ahead; the forecast is flat.
+    level : int or None
+        Bucket length in periods; ``None`` uses each item's rounded mean
+        inter-demand interval.
+    method : {"sba", "croston", "sbj", "ses"}
+        Method applied to the bucket series (one constant for size and interval).
+    alpha : float in (0, 1] or None
+        Its smoothing constant; ``None`` optimises it on the bucket series.
+    cost : {"mse", "mae", "mar", "msr"}
+        In-sample cost (in bucket units).
+    bounds : (float, float)
+        Search range of an optimised constant.
+    available : array-like of bool, optional
+        False where a period is unavailable.
+    return_params : bool
+        Also return alpha and level per item, and the bucket-series cost.
+
+    Returns
+    -------
+    ndarray of shape (horizon,) or (n_items, horizon); with
+    ``return_params=True`` a tuple ``(forecast, params, cost)``.
+
+    Examples
+    --------
+    >>> adida([0, 3, 0, 0, 2, 0, 1, 0], level=2, method="ses", alpha=0.5)
+    array([0.75])
+    """
+    return run_public(
+        fit_adida, y, horizon, available, return_params,
+        dict(level=level, method=method, alpha=alpha, cost=cost, bounds=bounds),
+    )
+
+
+def imapa(
+    y,
+    horizon: int = 1,
+    *,
+    max_level: int | None = None,
+    method: str = "sba",
+    alpha: float | None = 0.1,
+    cost: str = "mse",
+    bounds: tuple[float, float] = (0.01, 0.5),
+    available=None,
+    return_params: bool = False,
+):
+    """Equal-weight combination of ADIDA forecasts at levels ``1 .. max_level`` (IMAPA).
+
+    Parameters are those of :func:`adida`, with ``max_level`` (``None``: the
+    item's rounded mean inter-demand interval, at least 2) instead of
+    ``level``. The returned cost is NaN and alpha is the mean over levels.
+
+    Examples
+    --------
+    >>> imapa([0, 3, 0, 0, 2, 0, 1, 0], max_level=2, method="ses", alpha=0.5)
+    array([0.5859375])
+    """
+    return run_public(
+        fit_imapa, y, horizon, available, return_params,
+        dict(max_level=max_level, method=method, alpha=alpha, cost=cost, bounds=bounds),
+    )

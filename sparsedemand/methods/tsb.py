@@ -1,0 +1,135 @@
+"""TSB: Teunter, Syntetos & Babai (2011, European Journal of Operational Research 214:606-615).
+
+Recurrence (on the trimmed, available series ``y[0..n-1]``, ``y[0] > 0``):
+
+* start: size ``z = y[0]``; demand probability ``p = 1 / x`` with ``x`` the
+  first inter-demand interval (``x = 1`` when there is only one demand);
+* for every period ``t = 1 .. n-1``: ``p <- p + beta (1[y[t] > 0] - p)``, and
+  when ``y[t] > 0`` also ``z <- z + alpha (y[t] - z)``;
+* forecast ``p * z`` for every step.
+
+Unlike Croston, the probability decays through every period without demand,
+so an item that stopped selling has its forecast fade towards zero. The
+in-sample forecast for period ``t`` is ``p * z`` before the update at ``t``.
+The kernel walks demands only: over a run of ``m`` zero periods ``p`` is
+multiplied by ``(1 - beta) ** m`` and the run's cost has a closed form.
+"""
+
+from __future__ import annotations
+
+from numba import njit
+
+from ._input import (
+    MethodFit,
+    PanelArrays,
+    check_bounds,
+    check_constant,
+    check_cost,
+    compound_params,
+    constant_mean,
+    run_public,
+)
+from .events import size_moments
+from .optimize import finish_cost, point_error, run_geometric
+
+__all__ = ["tsb", "tsb_item"]
+
+
+@njit(cache=True, nogil=True)
+def tsb_item(pos, size, n, alpha, beta, cost_code):
+    """One item: (forecast, in-sample cost, final probability p, final size z)."""
+    k = pos.shape[0]
+    z = size[0]
+    x = float(pos[1] - pos[0]) if k > 1 else 1.0
+    p = 1.0 / x
+    r = 1.0 - beta
+    acc = 0.0
+    cum = 0.0
+    for j in range(1, k):
+        acc, cum, decay = run_geometric(cost_code, acc, cum, p * z, r, pos[j] - pos[j - 1] - 1)
+        p *= decay
+        y = size[j]
+        acc, cum = point_error(cost_code, acc, cum, y - p * z)
+        p += beta * (1.0 - p)
+        z += alpha * (y - z)
+    acc, cum, decay = run_geometric(cost_code, acc, cum, p * z, r, n - 1 - pos[k - 1])
+    p *= decay
+    return p * z, finish_cost(acc, n - 1), p, z
+
+
+def fit_tsb(
+    data: PanelArrays,
+    horizon: int,
+    *,
+    alpha: float | None = 0.1,
+    beta: float | None = 0.1,
+    cost: str = "mse",
+    bounds: tuple[float, float] = (0.01, 0.5),
+) -> MethodFit:
+    """Fit TSB for every item (see the module docstring)."""
+    from ._fitting import SMOOTH_ROWS, TSB, fit_smoothing  # the shared driver imports this module
+
+    a = check_constant("alpha", alpha)
+    b = check_constant("beta", beta)
+    code = check_cost(cost)
+    lo, hi = check_bounds(bounds)
+    ev = data.events
+    out = fit_smoothing(ev, TSB, a, b, False, code, lo, hi)
+    r = SMOOTH_ROWS
+    _, size_var = size_moments(ev)
+    return MethodFit(
+        name="tsb",
+        mean=constant_mean(out[r["mean"]], horizon),
+        params={"alpha": out[r["alpha"]], "beta": out[r["beta"]]},
+        cost=out[r["cost"]],
+        distribution="compound",
+        dist_params=compound_params(out[r["p"]], out[r["z"]], size_var),
+    )
+
+
+def tsb(
+    y,
+    horizon: int = 1,
+    *,
+    alpha: float | None = 0.1,
+    beta: float | None = 0.1,
+    cost: str = "mse",
+    bounds: tuple[float, float] = (0.01, 0.5),
+    available=None,
+    return_params: bool = False,
+):
+    """TSB forecast ``p * z`` (demand probability times demand size).
+
+    Parameters
+    ----------
+    y : array-like, shape (n_periods,) or (n_items, n_periods), or DemandPanel
+        Demand; NaN marks an unavailable period. Leading zeros are trimmed.
+    horizon : int
+        Steps ahead; the forecast is flat.
+    alpha : float in (0, 1] or None
+        Smoothing constant of the size; ``None`` optimises it per item.
+    beta : float in (0, 1] or None
+        Smoothing constant of the probability; ``None`` optimises it.
+    cost : {"mse", "mae", "mar", "msr"}
+        In-sample cost minimised when optimising.
+    bounds : (float, float)
+        Search range of optimised constants.
+    available : array-like of bool, optional
+        False where a period is unavailable.
+    return_params : bool
+        Also return the fitted parameters and the in-sample cost per item.
+
+    Returns
+    -------
+    ndarray of shape (horizon,) or (n_items, horizon); with
+    ``return_params=True`` a tuple ``(forecast, params, cost)``.
+
+    Examples
+    --------
+    >>> tsb([0, 3, 0, 0, 2, 0], alpha=0.5, beta=0.5)
+    array([0.67708333])
+    """
+    return run_public(
+        fit_tsb, y, horizon, available, return_params,
+        dict(alpha=alpha, beta=beta, cost=cost, bounds=bounds),
+    )
