@@ -790,32 +790,24 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike, *, index: bool = F
     suffix = target.suffix.lower()
     if suffix not in (".csv", ".parquet", ".pq"):
         raise InputError(f"{target}: output must end in .csv or .parquet")
-    target.parent.mkdir(parents=True, exist_ok=True)
     frame = _printable(frame)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    os.close(fd)
-    try:
-        if suffix == ".csv":
-            frame.to_csv(tmp, index=index)
-        else:
-            frame.to_parquet(tmp, index=index)
-        os.chmod(tmp, _plain_file_mode())
-        os.replace(tmp, target)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
-    return target
+    if suffix == ".csv":
+        return _write_atomically(target, lambda tmp: frame.to_csv(tmp, index=index))
+    return _write_atomically(target, lambda tmp: frame.to_parquet(tmp, index=index))
 
 
 def write_text(text: str, path: str | os.PathLike) -> Path:
     """Write a text file atomically (temporary file, then rename)."""
-    target = Path(path)
+    return _write_atomically(Path(path), lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))
+
+
+def _write_atomically(target: Path, write) -> Path:
+    """Run ``write(tmp)`` on a temporary file beside ``target``, then rename it into place."""
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    os.close(fd)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
+        write(tmp)
         os.chmod(tmp, _plain_file_mode())
         os.replace(tmp, target)
     except BaseException:
