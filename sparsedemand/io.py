@@ -572,16 +572,14 @@ def _attributes(frame, item_codes, items, columns, source, present) -> pd.DataFr
                     f"{source}, row {row + 1}, item {labels[row]!r}: negative unit price {vals[row]:g}"
                 )
             col = pd.Series(vals)
-        raw = col.to_numpy(dtype=object)
-        ref = raw[first][item_codes]
-        same = (pd.Series(raw) == pd.Series(ref)).to_numpy()
-        both_na = pd.isna(raw) & pd.isna(ref)
-        clash = ~(same | both_na)
+        codes = pd.factorize(col, use_na_sentinel=True)[0]  # equal values, equal codes; NaN -1
+        clash = codes != codes[first][item_codes]
         if clash.any():
             row = int(np.flatnonzero(clash)[0])
+            ref = first[item_codes[row]]
             raise InputError(
                 f"{source}, row {row + 1}, item {labels[row]!r}: {name} "
-                f"{_plain(raw[row])!r} differs from {_plain(ref[row])!r} on the item's first row"
+                f"{_plain(col.iloc[row])!r} differs from {_plain(col.iloc[ref])!r} on the item's first row"
             )
         out[name] = col.iloc[first].to_numpy()  # keeps the column's type (integer lead times)
     attrs = pd.DataFrame(out, index=pd.Index(items, name="item"))

@@ -892,3 +892,11 @@ def test_written_files_get_ordinary_permissions(tmp_path):
     write_text("x", tmp_path / "t.txt")
     assert (tmp_path / "t.csv").stat().st_mode & 0o777 == expected
     assert (tmp_path / "t.txt").stat().st_mode & 0o777 == expected
+
+
+def test_attribute_missing_on_every_row_of_an_item_is_allowed(write_csv, input_error):
+    path = write_csv("t.csv", "item,period,quantity,location\nA,1,1,\nB,1,1,Hill\nA,2,1,\n")
+    panel = read_demand(path)[0]
+    assert pd.isna(panel.attribute("location")["A"]) and panel.attribute("location")["B"] == "Hill"
+    path = write_csv("t2.csv", "item,period,quantity,location\nA,1,1,North\nA,2,1,\n")
+    input_error(lambda: read_demand(path), "t2.csv", "row 2", "item 'A'", "location", "'North'")
