@@ -27,8 +27,26 @@ DEMO_COLUMNS = Columns(attributes=("lead_time", "safety_critical"))
 
 
 def demo_history(*, parts: int = 40, days: int = 364, seed: int = 5):
-    """A small demo history as a long table and as a panel."""
+    """A small demo history as a long table and as a panel.
+
+    Two items are added so that every run has items without a CV²: one never
+    sold and one with a single demand near the end.
+    """
     table = make_demo(DemoSpec(parts=parts, days=days, seed=seed))
+    first, last = table["period"].min(), table["period"].max()
+    late = sorted(table["period"].unique())[-20]
+    extra = pd.DataFrame({
+        "item": ["HIL-NEW0001", "HIL-NEW0001", "RIV-OLD0001", "RIV-OLD0001"],
+        "period": [late, last, first, last],
+        "quantity": [2, 0, 0, 0],
+        "in_stock": 1,
+        "location": ["Hill depot", "Hill depot", "River depot", "River depot"],
+        "category": "bearings",
+        "unit_price": [20.0, 20.0, 15.0, 15.0],
+        "lead_time": 7,
+        "safety_critical": 0,
+    })
+    table = pd.concat([table, extra], ignore_index=True)
     return table, from_frame(table, columns=DEMO_COLUMNS)
 
 
