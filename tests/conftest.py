@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pandas as pd
 import pytest
 
@@ -44,7 +46,7 @@ def wide_frame() -> pd.DataFrame:
 def write_csv(tmp_path):
     """Write text or a DataFrame to ``tmp_path/name`` and return the path."""
 
-    def write(name: str, content) -> "pd.PathLike":
+    def write(name: str, content) -> Path:
         path = tmp_path / name
         if isinstance(content, pd.DataFrame):
             content.to_csv(path, index=False)
