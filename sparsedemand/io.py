@@ -790,8 +790,21 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike, *, index: bool = F
         raise InputError(f"{target}: output must end in .csv or .parquet")
     frame = _printable(frame)
     if suffix == ".csv":
-        return _write_atomically(target, lambda tmp: frame.to_csv(tmp, index=index))
+        return _write_atomically(target, lambda tmp: _write_csv(frame, tmp, index=index))
     return _write_atomically(target, lambda tmp: frame.to_parquet(tmp, index=index))
+
+
+def _write_csv(frame: pd.DataFrame, path: str, *, index: bool) -> None:
+    """CSV through pyarrow (several times faster than pandas), pandas for what it cannot type."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    try:
+        table = pa.Table.from_pandas(frame, preserve_index=index)
+    except (pa.ArrowInvalid, pa.ArrowTypeError, TypeError):
+        frame.to_csv(path, index=index)
+        return
+    pacsv.write_csv(table, path, pacsv.WriteOptions(quoting_style="needed"))
 
 
 def write_text(text: str, path: str | os.PathLike) -> Path:

@@ -295,10 +295,24 @@ class ForecastResult:
         return long
 
 
-def _fit_group(panel: DemandPanel, rows: np.ndarray, rule: Rule, horizon: int, cost: str):
+_TUNED = ("alpha", "beta", "window")
+
+
+def _routed_options(rule: Rule, cost: str) -> dict:
+    """The rule's fixed parameters; every other smoothing constant is optimised."""
+    allowed = _methods.method_options(rule.method)
     options = dict(rule.params)
-    if cost and "cost" not in options and rule.method in _methods.OPTIMISABLE:
+    for name in _TUNED:
+        # "same" ties the interval constant to the size constant: optimised together
+        if name in allowed and name not in options and allowed[name] != "same":
+            options[name] = None
+    if "cost" in allowed and "cost" not in options:
         options["cost"] = cost
+    return options
+
+
+def _fit_group(panel: DemandPanel, rows: np.ndarray, rule: Rule, horizon: int, cost: str):
+    options = _routed_options(rule, cost)
     values = panel.values[rows]
     available = None if panel.available is None else panel.available[rows]
     return _methods.fit(rule.method, values, panel.start[rows], available, horizon=horizon, **options)
@@ -545,9 +559,11 @@ def _audit_table(classes, rules, method_col, param_text, cost_col, dist_col, fal
     )
     reasons, warnings = [], []
     unavailable = classes["unavailable_periods"].to_numpy()
+    patterns = classes["pattern"].to_numpy()
+    class_reasons = classes["reason"].to_numpy()
     for i, rule in enumerate(rules):
-        pattern = classes["pattern"].iat[i]
-        reasons.append(f"{classes['reason'].iat[i]}; {_method_reason(rule, pattern, cost)}")
+        pattern = patterns[i]
+        reasons.append(f"{class_reasons[i]}; {_method_reason(rule, pattern, cost)}")
         notes = []
         if unavailable[i] > 0:
             notes.append(f"{int(unavailable[i])} out-of-stock periods left out")
@@ -590,7 +606,7 @@ def _select_by_holdout(panel, classes, policy, candidates, holdout, cost, classi
             continue
         scores = {}
         for name in candidates:
-            options = {"cost": cost} if name in _methods.OPTIMISABLE else {}
+            options = _routed_options(Rule(name), cost)
             fitted = _methods.fit(name, train.values[rows], train.start[rows],
                                   None if train_ok is None else train_ok[rows], horizon=holdout, **options)
             s = rmsse(train.values[rows], actual[rows], fitted.mean,

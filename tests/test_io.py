@@ -722,15 +722,19 @@ def test_write_table_rejects_other_suffixes(tmp_path, input_error):
     assert _leftovers(tmp_path) == []
 
 
-@pytest.mark.parametrize(("method", "name"), [("to_csv", "t.csv"), ("to_parquet", "t.parquet")])
+@pytest.mark.parametrize(("method", "name"), [("csv", "t.csv"), ("to_parquet", "t.parquet")])
 def test_write_table_failure_leaves_nothing(tmp_path, monkeypatch, method, name):
-    real = getattr(pd.DataFrame, method)
+    import sparsedemand.io as sdio
 
-    def half_then_fail(self, path, *args, **kwargs):
-        real(self.iloc[:1], path, *args, **kwargs)  # something reaches the disk first
+    owner = sdio if method == "csv" else pd.DataFrame
+    attr = "_write_csv" if method == "csv" else method
+    real = getattr(owner, attr)
+
+    def half_then_fail(frame, path, *args, **kwargs):
+        real(frame.iloc[:1], path, *args, **kwargs)  # something reaches the disk first
         raise OSError("disk full")
 
-    monkeypatch.setattr(pd.DataFrame, method, half_then_fail)
+    monkeypatch.setattr(owner, attr, half_then_fail)
     with pytest.raises(OSError, match="disk full"):
         write_table(pd.DataFrame({"a": range(100)}), tmp_path / name)
     assert _leftovers(tmp_path) == []
@@ -740,10 +744,12 @@ def test_write_table_failure_keeps_the_previous_file(tmp_path, monkeypatch):
     target = tmp_path / "t.csv"
     target.write_text("old\n")
 
-    def fail(self, *args, **kwargs):
+    import sparsedemand.io as sdio
+
+    def fail(*args, **kwargs):
         raise OSError("disk full")
 
-    monkeypatch.setattr(pd.DataFrame, "to_csv", fail)
+    monkeypatch.setattr(sdio, "_write_csv", fail)
     with pytest.raises(OSError):
         write_table(pd.DataFrame({"a": [1]}), target)
     assert target.read_text() == "old\n" and _leftovers(tmp_path) == ["t.csv"]
