@@ -385,6 +385,9 @@ def _table(frame: pd.DataFrame, *, table_id: str | None = None, links: dict | No
     headers = headers or {}
     links = links or {}
     numeric = [_is_number_column(frame[c]) for c in frame.columns]
+    # long text (reasons, warnings) wraps; everything else stays on one line
+    wide = [not is_num and len(frame) > 0 and max(len(str(v)) for v in frame[c]) > 40
+            for c, is_num in zip(frame.columns, numeric)]
     attrs = f' id="{table_id}"' if table_id else ""
     cls = "data sortable" if sortable else "data"
     head = []
@@ -406,6 +409,8 @@ def _table(frame: pd.DataFrame, *, table_id: str | None = None, links: dict | No
             text = "" if v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NA else str(v)
             if name == "item" and text in links:
                 cells.append(f'<td><a href="#{links[text]}">{escape(text)}</a></td>')
+            elif wide[c]:
+                cells.append(f'<td class="w">{escape(text)}</td>')
             else:
                 cells.append(f"<td>{escape(text)}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
@@ -1380,6 +1385,7 @@ dl.facts dt{font-weight:600;color:#444}dl.facts dd{margin:0}
 figure.chart{margin:.6rem 0}figure.chart img{max-width:100%;height:auto;display:block}
 table.data{border-collapse:collapse;font-size:.82rem;margin:.5rem 0}
 table.data th,table.data td{border-bottom:1px solid #e6e6e6;padding:.2rem .5rem;text-align:left;vertical-align:top}
+table.data td{white-space:nowrap}table.data td.w{white-space:normal;min-width:26rem}
 table.data td.n{text-align:right;font-variant-numeric:tabular-nums}
 table.data thead th{background:#eef2f8;position:sticky;top:0}
 table.sortable th button{font:inherit;font-weight:600;background:none;border:0;padding:0;cursor:pointer;color:#23395d}
