@@ -47,11 +47,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 from numba import njit
 from scipy import sparse
 
 from .errors import InputError
+
+Score = float | np.ndarray  # a scalar for one series, one value per item otherwise
 
 __all__ = [
     "ItemScale",
@@ -312,7 +315,7 @@ def _history(insample, insample_available, *, allow_1d: bool) -> _History:
     return _History(raw, flags, True, start)
 
 
-def naive_scale(insample, *, insample_available=None) -> ItemScale:
+def naive_scale(insample: npt.ArrayLike, *, insample_available: npt.ArrayLike | None = None) -> ItemScale:
     """In-sample scales of MASE and RMSSE, trimmed to each item's first demand.
 
     The MASE scale is the in-sample mean absolute one-step naive difference
@@ -368,7 +371,7 @@ def _per_scale(value: np.ndarray, scale: np.ndarray) -> np.ndarray:
         return np.where(good, value / np.where(good, scale, 1.0), np.nan)
 
 
-def excluded_periods(actual, *, available=None):
+def excluded_periods(actual: npt.ArrayLike, *, available: npt.ArrayLike | None = None) -> int | np.ndarray:
     """Number of evaluation periods left out of the scores (flagged unavailable or NaN).
 
     Examples
@@ -382,7 +385,14 @@ def excluded_periods(actual, *, available=None):
 
 
 # --------------------------------------------------------------------------- point metrics
-def mae(insample, actual, forecast, *, available=None, insample_available=None):
+def mae(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Mean absolute error over the available periods.
 
     ``insample`` is not used (pass ``None``); it keeps the signature uniform.
@@ -398,7 +408,14 @@ def mae(insample, actual, forecast, *, available=None, insample_available=None):
     return h.out(_masked_mean(np.abs(h.actual - f), h.mask))
 
 
-def mse(insample, actual, forecast, *, available=None, insample_available=None):
+def mse(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Mean squared error over the available periods (``insample`` unused).
 
     Examples
@@ -411,7 +428,14 @@ def mse(insample, actual, forecast, *, available=None, insample_available=None):
     return h.out(_masked_mean((h.actual - f) ** 2, h.mask))
 
 
-def mase(insample, actual, forecast, *, available=None, insample_available=None):
+def mase(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Mean absolute scaled error (Hyndman & Koehler 2006, IJF 22:679-688).
 
     MAE over the available evaluation periods divided by the in-sample mean
@@ -429,7 +453,14 @@ def mase(insample, actual, forecast, *, available=None, insample_available=None)
     return h.out(_per_scale(_masked_mean(np.abs(h.actual - f), h.mask), scale.mean_abs))
 
 
-def rmsse(insample, actual, forecast, *, available=None, insample_available=None):
+def rmsse(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Root mean squared scaled error (Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364).
 
     ``sqrt(MSE / mean squared in-sample one-step naive difference)``, the scale
@@ -447,7 +478,14 @@ def rmsse(insample, actual, forecast, *, available=None, insample_available=None
     return h.out(np.sqrt(_per_scale(_masked_mean((h.actual - f) ** 2, h.mask), scale.mean_sq)))
 
 
-def scaled_bias(insample, actual, forecast, *, available=None, insample_available=None):
+def scaled_bias(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Mean error ``forecast - actual`` divided by the MASE scale of the item.
 
     Positive values mean over-forecasting. Scaling by the in-sample mean
@@ -465,7 +503,15 @@ def scaled_bias(insample, actual, forecast, *, available=None, insample_availabl
     return h.out(_per_scale(_masked_mean(f - h.actual, h.mask), scale.mean_abs))
 
 
-def relative_mae(insample, actual, forecast, *, baseline, available=None, insample_available=None):
+def relative_mae(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    baseline: npt.ArrayLike,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """MAE of the forecast divided by the MAE of a baseline forecast, per item.
 
     The item-level ratio of Davydenko & Fildes 2013 (IJF 29:510-522); combine
@@ -482,7 +528,7 @@ def relative_mae(insample, actual, forecast, *, baseline, available=None, insamp
     return h.out(_per_scale(_masked_mean(np.abs(h.actual - f), h.mask), _masked_mean(np.abs(h.actual - b), h.mask)))
 
 
-def avg_rel_mae(relative, *, weights=None) -> float:
+def avg_rel_mae(relative: npt.ArrayLike, *, weights: npt.ArrayLike | None = None) -> float:
     """Geometric mean of relative MAEs across items, AvgRelMAE (Davydenko & Fildes 2013, IJF 29:510-522).
 
     ``exp(sum(w_i log r_i) / sum(w_i))``; Davydenko & Fildes weight item i by
@@ -514,7 +560,15 @@ def _cumulative_stock(h: _Holdout, f: np.ndarray) -> np.ndarray:
     return np.cumsum(np.where(h.mask, f - h.actual, 0.0), axis=1)
 
 
-def pis(insample, actual, forecast, *, available=None, insample_available=None, scaled: bool = False):
+def pis(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+    scaled: bool = False,
+) -> Score:
     """Periods in stock, PIS (Wallström & Segerstedt 2010, IJPE 128:625-636).
 
     Treats the forecast as the supply of each period and sums the running
@@ -540,7 +594,14 @@ def pis(insample, actual, forecast, *, available=None, insample_available=None, 
     return h.out(value)
 
 
-def shortages(insample, actual, forecast, *, available=None, insample_available=None):
+def shortages(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Number of shortages: scored periods whose running stock of PIS is negative.
 
     The running stock is that of :func:`pis` (Wallström & Segerstedt 2010,
@@ -562,7 +623,7 @@ def shortages(insample, actual, forecast, *, available=None, insample_available=
 
 
 # --------------------------------------------------------------------------- quantile metrics
-def pinball_loss(actual, quantile, level):
+def pinball_loss(actual: npt.ArrayLike, quantile: npt.ArrayLike, level: npt.ArrayLike) -> np.ndarray:
     """Elementwise pinball (check) loss of Koenker & Bassett 1978 (Econometrica 46:33-50).
 
     ``rho_tau(u) = u * (tau - 1{u < 0})`` with ``u = actual - quantile`` and
@@ -582,7 +643,15 @@ def _mean_pinball(h: _Holdout, q: np.ndarray, lv: np.ndarray) -> np.ndarray:
     return _masked_mean(pinball_loss(h.actual[:, :, None], q, lv), h.mask)
 
 
-def pinball(insample, actual, quantiles, *, levels, available=None, insample_available=None):
+def pinball(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    quantiles: npt.ArrayLike,
+    *,
+    levels: npt.ArrayLike,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Mean pinball loss per item and quantile level (Koenker & Bassett 1978, Econometrica 46:33-50).
 
     ``quantiles`` has shape ``actual.shape + (len(levels),)``; the result has
@@ -599,7 +668,15 @@ def pinball(insample, actual, quantiles, *, levels, available=None, insample_ava
     return h.out(_mean_pinball(h, q, lv))
 
 
-def scaled_pinball(insample, actual, quantiles, *, levels, available=None, insample_available=None):
+def scaled_pinball(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    quantiles: npt.ArrayLike,
+    *,
+    levels: npt.ArrayLike,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Scaled pinball loss per quantile level, the SPL of the M5 uncertainty competition.
 
     Mean pinball loss (Koenker & Bassett 1978) divided by the in-sample mean
@@ -619,7 +696,15 @@ def scaled_pinball(insample, actual, quantiles, *, levels, available=None, insam
     return h.out(_per_scale(_mean_pinball(h, q, lv), scale.mean_abs))
 
 
-def coverage(insample, actual, quantiles, *, levels, available=None, insample_available=None):
+def coverage(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    quantiles: npt.ArrayLike,
+    *,
+    levels: npt.ArrayLike,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Share of available periods with ``actual <= quantile``, per level.
 
     A calibrated quantile forecast of level tau covers a share close to tau
@@ -636,7 +721,15 @@ def coverage(insample, actual, quantiles, *, levels, available=None, insample_av
     return h.out(_masked_mean((h.actual[:, :, None] <= q).astype(np.float64), h.mask))
 
 
-def interval_coverage(insample, actual, lower, upper, *, available=None, insample_available=None):
+def interval_coverage(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    lower: npt.ArrayLike,
+    upper: npt.ArrayLike,
+    *,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """Share of available periods with ``lower <= actual <= upper`` (``insample`` unused).
 
     Examples
@@ -654,7 +747,15 @@ def interval_coverage(insample, actual, lower, upper, *, available=None, insampl
     return h.out(_masked_mean(inside, h.mask))
 
 
-def quantile_crps(insample, actual, quantiles, *, levels, available=None, insample_available=None):
+def quantile_crps(
+    insample: npt.ArrayLike | ItemScale | None,
+    actual: npt.ArrayLike,
+    quantiles: npt.ArrayLike,
+    *,
+    levels: npt.ArrayLike,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
+) -> Score:
     """CRPS approximated from quantile forecasts, averaged over the available periods.
 
     Uses ``CRPS(F, y) = 2 * integral_0^1 rho_tau(y - F^{-1}(tau)) dtau``
@@ -682,7 +783,13 @@ def quantile_crps(insample, actual, quantiles, *, levels, available=None, insamp
 
 
 # --------------------------------------------------------------------------- aggregation
-def item_weights(history, *, last: int, unit_price=None, available=None) -> np.ndarray:
+def item_weights(
+    history: npt.ArrayLike,
+    *,
+    last: int,
+    unit_price: npt.ArrayLike | None = None,
+    available: npt.ArrayLike | None = None,
+) -> np.ndarray:
     """Weights proportional to each item's volume (or value) over the last periods.
 
     Volume is the units sold over the last ``last`` periods of ``history``;
@@ -714,7 +821,7 @@ def item_weights(history, *, last: int, unit_price=None, available=None) -> np.n
     return volume / total
 
 
-def weighted_mean(scores, weights=None) -> float:
+def weighted_mean(scores: npt.ArrayLike, weights: npt.ArrayLike | None = None) -> float:
     """Weighted mean of per-item scores, leaving out NaN scores and renormalising.
 
     Examples
@@ -750,7 +857,9 @@ def _membership(level: str, labels, n_items: int) -> tuple[sparse.csr_matrix, pd
     return member, pd.Index(uniques), codes
 
 
-def bottom_up(values, labels, *, available=None) -> tuple[np.ndarray, np.ndarray, pd.Index]:
+def bottom_up(
+    values: npt.ArrayLike, labels, *, available: npt.ArrayLike | None = None
+) -> tuple[np.ndarray, np.ndarray, pd.Index]:
     """Sum item series into groups, counting only each item's available periods.
 
     Parameters
@@ -846,14 +955,14 @@ class HierarchyScore:
 
 
 def hierarchical_rmsse(
-    insample,
-    actual,
-    forecast,
+    insample: npt.ArrayLike,
+    actual: npt.ArrayLike,
+    forecast: npt.ArrayLike,
     groups: dict,
     *,
-    weights=None,
-    available=None,
-    insample_available=None,
+    weights: npt.ArrayLike | None = None,
+    available: npt.ArrayLike | None = None,
+    insample_available: npt.ArrayLike | None = None,
 ) -> HierarchyScore:
     """Weighted RMSSE over aggregation levels, aggregating bottom-up before scoring.
 

@@ -43,6 +43,7 @@ from __future__ import annotations
 from dataclasses import dataclass, fields
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 from numba import njit
 
@@ -198,14 +199,14 @@ def _levels(order_up_to, n_items: int, n_periods: int, review: int) -> np.ndarra
 
 
 def simulate_order_up_to(
-    demand,
-    order_up_to,
+    demand: npt.ArrayLike,
+    order_up_to: npt.ArrayLike,
     *,
     review: int = 1,
     lead_time: int = 0,
-    available=None,
+    available: npt.ArrayLike | None = None,
     unmet: str = "lost",
-    initial_stock=None,
+    initial_stock: npt.ArrayLike | None = None,
 ) -> StockSimulation:
     """Run a periodic-review order-up-to policy over recorded demand, item by item.
 
