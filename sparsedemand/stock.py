@@ -373,9 +373,13 @@ def _pmf_targets(p_lead, p_steps, R, Q, target_kind, target):
     }
 
 
-def _distribution_targets(kind, params, mean, L, R, Q, target_kind, target, *, history, seeds, items,
-                          n_samples, jitter, max_units):
-    """Targets for items of one pmf-based kind, in blocks of similar grid size."""
+def _distribution_targets(kind, params, mean, L, R, Q, target_kind, target, *, history, history_rows, seeds,
+                          items, n_samples, jitter, max_units):
+    """Targets for items of one pmf-based kind, in blocks of similar grid size.
+
+    ``history`` is the whole panel's (values, start, available); item ``i`` is
+    its row ``history_rows[i]``.
+    """
     n = mean.shape[0]
     out = {}
     guess = dist.grid_sizes(kind, params, mean, periods=L + R, items=items, max_units=max_units)
@@ -385,7 +389,8 @@ def _distribution_targets(kind, params, mean, L, R, Q, target_kind, target, *, h
         sub = {k: v[chunk] for k, v in params.items()}
         hist = {}
         if kind == "empirical":
-            hist = dict(values=history[0][chunk], start=history[1][chunk], available=history[2][chunk])
+            hist = dict(values=history[0], start=history[1], available=history[2],
+                        history_rows=history_rows[chunk])
         ragged = dist.demand_pmfs(kind, sub, mean[chunk], periods=horizons, seed=seeds[chunk],
                                   n_samples=n_samples, jitter=jitter, max_units=max_units,
                                   items=[items[i] for i in chunk], ragged=True, **hist)
@@ -534,7 +539,7 @@ def stock_targets(
         if lots is not None:
             q = lots[rows]
         elif k == "empirical":  # the bootstrap's own demand rate, from the history
-            q = np.maximum(1.0, _history_rate(*(a[rows] for a in hist)) * R[rows])
+            q = np.maximum(1.0, _history_rate(*hist, rows) * R[rows])
         else:  # the forecast demand over one review period
             q = np.maximum(1.0, dist.period_totals(sub_mean, L[rows] + R[rows])
                            - dist.period_totals(sub_mean, L[rows]))
@@ -544,7 +549,7 @@ def stock_targets(
         else:
             res = _distribution_targets(
                 k, sub, sub_mean, L[rows], R[rows], q, target_kind, target,
-                history=None if hist is None else tuple(a[rows] for a in hist), seeds=seeds[rows],
+                history=hist, history_rows=rows, seeds=seeds[rows],
                 items=sub_labels, n_samples=n_samples, jitter=jitter, max_units=max_units)
         for key, value in res.items():
             result.setdefault(key, np.full(n, np.nan))[rows] = value
@@ -583,13 +588,17 @@ def stock_targets(
     return table
 
 
-def _history_rate(values, start, available) -> np.ndarray:
-    """Mean demand per available period from each item's first demand on (0 for an item never sold)."""
+def _history_rate(values, start, available, rows) -> np.ndarray:
+    """Mean demand per available period from the first demand on, for history ``rows`` (0 if never sold)."""
+    out = np.zeros(len(rows))
     cols = np.arange(values.shape[1])[None, :]
-    use = available & (cols >= start[:, None])
-    count = use.sum(axis=1)
-    total = np.where(use, values, 0.0).sum(axis=1)
-    return np.divide(total, count, out=np.zeros(len(total)), where=count > 0)
+    for lo in range(0, len(rows), 4096):  # bounded temporaries on long histories
+        r = rows[lo : lo + 4096]
+        use = available[r] & (cols >= start[r][:, None])
+        count = use.sum(axis=1)
+        total = np.where(use, values[r], 0.0).sum(axis=1)
+        out[lo : lo + 4096] = np.divide(total, count, out=np.zeros(len(r)), where=count > 0)
+    return out
 
 
 # --------------------------------------------------------------------------- totals

@@ -30,7 +30,13 @@ Kinds (per-period parameters, periods independent and identically distributed):
     Forecasting 20:375-387): a two-state Markov chain for demand occurrence
     estimated from the item's own available history, started from the last
     observed state; sizes resampled from the item's non-zero demands and
-    jittered; seeded and deterministic for a given seed.
+    jittered; seeded and deterministic for a given seed. The paper jitters a
+    resampled size ``x`` to ``1 + INT(x + Z sqrt(x))`` with ``Z`` standard
+    normal, keeping ``x`` when that is not positive (from memory); here the
+    jittered size is the nearest whole number to ``x + Z sqrt(x)`` (again
+    ``x`` when not positive), which does not add half a unit to every size.
+    Sizes are rounded to whole units; all horizons of one call share the
+    same sample paths.
 ``"point"``
     No spread: the total forecast mean, split between the two neighbouring
     whole numbers so that the PMF keeps the mean (all mass on 0 for a zero
@@ -39,9 +45,11 @@ Kinds (per-period parameters, periods independent and identically distributed):
 Grid size: each item starts from ``K = ceil(mean + 12 sd) + 2`` of its total and
 the grid is doubled until the probability left beyond it is below
 :data:`TAIL_TOLERANCE`, up to ``max_units`` (default :data:`MAX_UNITS`); at
-the cap the remaining tail mass is put on the last cell. The returned array
-is as wide as the widest item needs, so callers with very mixed volumes should
-work in blocks of similar items (:func:`grid_sizes` gives each item's need).
+the cap the remaining tail mass is put on the last cell. Work is done in
+blocks of items with similar grids (:func:`size_blocks`). A dense result is as
+wide as its widest item needs; ``demand_pmfs(..., ragged=True)`` returns one
+row per item, each only as long as that item needs, for many items of very
+different volumes.
 
 Examples
 --------
@@ -350,16 +358,31 @@ def _cap(max_units) -> int:
 
 # --------------------------------------------------------------------------- kernels
 @njit(cache=True)
+def _log_rising(a, x):
+    """``log Gamma(a + x) - log Gamma(a)`` without cancellation for large ``a`` (Stirling series)."""
+    if x == 0.0:
+        return 0.0
+    if a < 10.0:
+        return math.lgamma(a + x) - math.lgamma(a)
+    z = a + x
+    return ((a - 0.5) * math.log1p(x / a) + x * math.log(z) - x
+            + (1.0 / z - 1.0 / a) / 12.0 - (1.0 / z**3 - 1.0 / a**3) / 360.0)
+
+
+@njit(cache=True)
 def _add_component(row, base, xmax, w, poisson, a, lp, l1p):
-    """Add ``w * P(X = x)`` at ``row[base + x]`` for ``x <= xmax``.
+    """Add ``w * P(X = x)`` at ``row[base + x]`` for ``x <= xmax``; return a bound on ``w * P(X > xmax)``.
 
     ``X`` is Poisson with mean ``a`` (``poisson``) or negative binomial with
     size ``a`` and success probability ``exp(lp)``. The walk starts at the mode
     (or the grid end) and uses the ratio of successive probabilities, stopping
-    once the terms are negligible.
+    once the terms are negligible. Past the mode the ratio decreases, so the
+    mass beyond the grid is at most a geometric series from the last term
+    (1.0, "unknown", when the grid ends before the mode).
     """
     if poisson:
         mode = math.floor(a)
+        q1 = 0.0
     else:
         q1 = math.exp(l1p)
         mode = math.floor((a - 1.0) * q1 / math.exp(lp)) if a > 1.0 else 0.0
@@ -367,7 +390,7 @@ def _add_component(row, base, xmax, w, poisson, a, lp, l1p):
     if poisson:
         logp = -a + x0 * math.log(a) - math.lgamma(x0 + 1.0)
     else:
-        logp = math.lgamma(x0 + a) - math.lgamma(a) - math.lgamma(x0 + 1.0) + a * lp + x0 * l1p
+        logp = _log_rising(a, float(x0)) - math.lgamma(x0 + 1.0) + a * lp + x0 * l1p
     p0 = math.exp(logp)
     row[base + x0] += w * p0
     p = p0
@@ -387,41 +410,44 @@ def _add_component(row, base, xmax, w, poisson, a, lp, l1p):
             p *= (x - 1.0 + a) / x * q1
         row[base + x] += w * p
         if w * p < _MIN_CELL and x > mode:
-            break
+            return 0.0
+    ratio = a / (xmax + 1.0) if poisson else (xmax + a) / (xmax + 1.0) * q1
+    if xmax < mode or ratio >= 1.0:
+        return 1.0
+    return w * p * ratio / (1.0 - ratio)
 
 
 @njit(cache=True)
-def _mixture_kernel(n, q, shift, mu, size, grid, out):
+def _mixture_kernel(n, q, shift, mu, size, grid, out, tail):
     """Total over ``n[i]`` periods of ``B * (shift + X)``, B ~ Bernoulli(q), X Poisson/NB (size inf = Poisson).
 
     Mixture over the number ``k`` of active periods: ``Binomial(k; n, q)`` times
     the law of ``k * shift + X_1 + ... + X_k`` (Poisson(k mu) or NB(k r, same
-    success probability)). Rows are filled on ``0 .. grid[i]-1`` of ``out``.
+    success probability)). Rows are filled on ``0 .. grid[i]-1`` of ``out``;
+    ``tail[i]`` receives a bound on the probability beyond the grid.
     """
     for i in range(out.shape[0]):
         row = out[i]
         ni = n[i]
         qi = q[i]
         K = grid[i]
+        tail[i] = 0.0
         if ni <= 0 or qi <= 0.0:
             row[0] += 1.0
             continue
         c = shift[i]
         m = mu[i]
         r = size[i]
-        kmax = ni
-        if c > 0:
-            kmax = min(ni, (K - 1) // c)
         poisson = not (r < np.inf)
         lp = 0.0
         l1p = 0.0
         if m > 0.0 and not poisson:
-            lp = math.log(r / (r + m))
-            l1p = math.log(m / (r + m))
+            lp = -math.log1p(m / r)
+            l1p = math.log(m) - math.log(r + m)
         lq = math.log(qi)
         l1q = math.log1p(-qi) if qi < 1.0 else -np.inf
         lgn = math.lgamma(ni + 1.0)
-        for k in range(kmax + 1):
+        for k in range(ni + 1):
             if qi >= 1.0:
                 if k != ni:
                     continue
@@ -433,13 +459,14 @@ def _mixture_kernel(n, q, shift, mu, size, grid, out):
             w = math.exp(lw)
             base = c * k
             xmax = K - 1 - base
-            if xmax < 0:
+            if xmax < 0:  # k active periods already need more than the grid
+                tail[i] += w
                 continue
             if k == 0 or m <= 0.0:
                 row[base] += w
                 continue
             a = k * m if poisson else k * r
-            _add_component(row, base, xmax, w, poisson, a, lp, l1p)
+            tail[i] += _add_component(row, base, xmax, w, poisson, a, lp, l1p)
 
 
 _U12 = np.uint64(12)
@@ -460,8 +487,11 @@ def _uniform(state):
 
 
 @njit(cache=True)
-def _bootstrap_kernel(values, start, available, checkpoints, seeds, n_samples, jitter, out):
+def _bootstrap_kernel(values, rows, start, available, checkpoints, seeds, n_samples, jitter, out):
     """Willemain-Smart-Schwarz bootstrap totals at each checkpoint, ``out[i, j, s]``.
+
+    Item ``i`` uses history row ``rows[i]`` of ``values``, ``available`` and
+    ``start`` (so a subset of a large panel needs no copy).
 
     Occurrence: two-state Markov chain estimated from transitions between
     consecutive available periods from the item's first demand on (a state
@@ -471,10 +501,13 @@ def _bootstrap_kernel(values, start, available, checkpoints, seeds, n_samples, j
     is not positive. Every item has its own seed, so an item's samples do not
     depend on which other items share the call.
     """
-    n_items, n_periods = values.shape
+    n_periods = values.shape[1]
+    n_items = rows.shape[0]
     n_checks = checkpoints.shape[1]
     sizes = np.empty(n_periods, dtype=np.float64)
+    roots = np.empty(n_periods, dtype=np.float64)
     for i in range(n_items):
+        h = rows[i]
         nz = 0
         n_av = 0
         n00 = 0
@@ -483,14 +516,15 @@ def _bootstrap_kernel(values, start, available, checkpoints, seeds, n_samples, j
         n11 = 0
         prev = -1
         last = 0
-        for t in range(start[i], n_periods):
-            if not available[i, t]:
+        for t in range(start[h], n_periods):
+            if not available[h, t]:
                 prev = -1
                 continue
-            v = values[i, t]
+            v = values[h, t]
             occ = 1 if v > 0.0 else 0
             if occ == 1:
                 sizes[nz] = max(1.0, float(np.rint(v)))
+                roots[nz] = math.sqrt(sizes[nz])
                 nz += 1
             n_av += 1
             if prev == 0:
@@ -520,6 +554,8 @@ def _bootstrap_kernel(values, start, available, checkpoints, seeds, n_samples, j
         if state == np.uint64(0):  # xorshift must not start from zero
             state = _MULT
         csum = np.zeros(horizon + 1, dtype=np.int64)
+        spare = 0.0
+        have_spare = False
         for s in range(n_samples):
             occupied = last
             total = 0
@@ -528,13 +564,20 @@ def _bootstrap_kernel(values, start, available, checkpoints, seeds, n_samples, j
                 occupied = 1 if u < (p11 if occupied == 1 else p01) else 0
                 if occupied == 1:
                     state, u = _uniform(state)
-                    x = sizes[min(int(u * nz), nz - 1)]
+                    pick = min(int(u * nz), nz - 1)
+                    x = sizes[pick]
                     if jitter:
-                        state, u1 = _uniform(state)
-                        state, u2 = _uniform(state)
-                        # Box-Muller
-                        z = math.sqrt(-2.0 * math.log(1.0 - u1)) * math.cos(2.0 * math.pi * u2)
-                        jx = np.rint(x + z * math.sqrt(x))
+                        if have_spare:
+                            z = spare
+                            have_spare = False
+                        else:  # Box-Muller gives two independent normals
+                            state, u1 = _uniform(state)
+                            state, u2 = _uniform(state)
+                            radius = math.sqrt(-2.0 * math.log(1.0 - u1))
+                            z = radius * math.cos(2.0 * math.pi * u2)
+                            spare = radius * math.sin(2.0 * math.pi * u2)
+                            have_spare = True
+                        jx = np.rint(x + z * roots[pick])
                         if jx > 0.0:
                             x = jx
                     total += int(x)
@@ -656,13 +699,15 @@ def _mixture_rows(kind: str, prm: dict, n: np.ndarray, cap: int) -> list:
         for blk in size_blocks(grid[pending]):
             rows = pending[blk]
             block = np.zeros((rows.size, int(grid[rows].max())))
-            _mixture_kernel(n[rows], q[rows], shift[rows], m[rows], r[rows], grid[rows], block)
-            left = 1.0 - block.sum(axis=1)
-            short = left > TAIL_TOLERANCE
+            tail = np.zeros(rows.size)
+            _mixture_kernel(n[rows], q[rows], shift[rows], m[rows], r[rows], grid[rows], block, tail)
+            short = tail > TAIL_TOLERANCE
             capped = short & (grid[rows] >= cap)
             # at the cap the tail goes on the last cell so that each row sums to 1
+            left = np.maximum(1.0 - block.sum(axis=1), 0.0)
             block[np.flatnonzero(capped), grid[rows[capped]] - 1] += left[capped]
             done = ~short | capped
+            block /= block.sum(axis=1, keepdims=True)  # rounding in the log-probabilities of large counts
             _store_rows(block[done], rows[done], out)
             retry.append(rows[~done])
         pending = np.concatenate(retry)
@@ -730,14 +775,14 @@ def _histogram_rows(totals, cap):
     return data, offsets
 
 
-def _bootstrap_rows(values, start, available, checks: np.ndarray, seeds, n_samples: int,
+def _bootstrap_rows(values, rows, start, available, checks: np.ndarray, seeds, n_samples: int,
                     jitter: bool, cap: int, block_items: int = 256) -> list[list]:
     n_items, n_checks = checks.shape
     out: list[list] = [[None] * n_items for _ in range(n_checks)]
     for lo in range(0, n_items, block_items):
         sl = slice(lo, min(lo + block_items, n_items))
         totals = np.empty((sl.stop - lo, n_checks, n_samples), dtype=np.int64)
-        _bootstrap_kernel(values[sl], start[sl], available[sl], checks[sl], seeds[sl],
+        _bootstrap_kernel(values, rows[sl], start, available, checks[sl], seeds[sl],
                           n_samples, jitter, totals)
         for j in range(n_checks):
             data, offsets = _histogram_rows(np.ascontiguousarray(totals[:, j, :]), cap)
@@ -746,27 +791,40 @@ def _bootstrap_rows(values, start, available, checks: np.ndarray, seeds, n_sampl
     return out
 
 
-def _history(values, start, available, n_items: int):
+def _history(values, start, available, history_rows, n_items: int):
+    """Checked history arrays (no copies of valid float64 input) and the item-to-row map."""
     if values is None:
         raise InputError("the empirical (bootstrap) distribution needs the demand history: pass values=")
     values = np.ascontiguousarray(values, dtype=np.float64)
-    if values.ndim != 2 or values.shape[0] != n_items:
-        raise InputError(f"values must have shape ({n_items}, periods), got {values.shape}")
+    if values.ndim != 2:
+        raise InputError(f"values must be 2-D (items x periods), got shape {values.shape}")
+    n_rows = values.shape[0]
+    if history_rows is None:
+        if n_rows != n_items:
+            raise InputError(f"values has {n_rows} rows for {n_items} items")
+        rows = np.arange(n_items, dtype=np.int64)
+    else:
+        rows = np.asarray(history_rows, dtype=np.int64)
+        if rows.shape != (n_items,) or ((rows < 0) | (rows >= n_rows)).any():
+            raise InputError(f"history_rows must give one row of values (0 .. {n_rows - 1}) per item")
     if available is None:
         available = np.ones(values.shape, dtype=np.bool_)
     available = np.ascontiguousarray(available, dtype=np.bool_)
     if available.shape != values.shape:
         raise InputError(f"available has shape {available.shape}, values has {values.shape}")
-    bad = ~np.isfinite(values) | (values < 0)
-    if (bad & available).any():
-        i, t = np.argwhere(bad & available)[0]
-        raise InputError(f"values must be finite and >= 0, got {values[i, t]!r} for item {i}, period {t}")
-    values = np.where(bad, 0.0, values)
+    # values where the item was unavailable are never read
+    if not ((values >= 0) | ~available).all():
+        bad = ~(values >= 0) & available
+        i, t = np.argwhere(bad)[0]
+        raise InputError(f"values must be finite and >= 0, got {values[i, t]!r} for row {i}, period {t}")
+    if (np.isinf(values) & available).any():
+        i, t = np.argwhere(np.isinf(values) & available)[0]
+        raise InputError(f"values must be finite and >= 0, got {values[i, t]!r} for row {i}, period {t}")
     if start is None:
-        positive = values > 0
+        positive = (values > 0) & available
         start = np.where(positive.any(axis=1), positive.argmax(axis=1), values.shape[1])
-    start = _per_item(start, n_items, name="start", integer=True, minimum=0)
-    return values, np.minimum(start, values.shape[1]).astype(np.int64), available
+    start = _per_item(start, n_rows, name="start", integer=True, minimum=0)
+    return values, rows, np.minimum(start, values.shape[1]).astype(np.int64), available
 
 
 def demand_pmfs(
@@ -784,13 +842,17 @@ def demand_pmfs(
     max_units: int | None = None,
     items=None,
     ragged: bool = False,
+    history_rows=None,
 ) -> list:
     """PMFs of total demand for several numbers of periods at once.
 
     Same as :func:`demand_pmf` for each entry of ``periods`` (each a whole
     number or one per item); for ``"empirical"`` all entries come from the same
     bootstrap paths, so for example the lead-time total never exceeds the
-    lead-time-plus-review total of the same path. With ``ragged=True`` each
+    lead-time-plus-review total of the same path. ``history_rows`` (one per
+    item) says which row of ``values``, ``start`` and ``available`` holds
+    each item's history, so a subset of a large panel needs no copy. With
+    ``ragged=True`` each
     entry is a list of 1-D rows, each only as long as its own item needs
     (memory in proportion to the items' demand, whatever the mix of volumes).
 
@@ -810,9 +872,9 @@ def demand_pmfs(
     if kind == "empirical":
         if int(n_samples) != n_samples or n_samples < 1:
             raise InputError(f"n_samples must be a whole number >= 1, got {n_samples!r}")
-        vals, st, av = _history(values, start, available, n_items)
+        vals, hrows, st, av = _history(values, start, available, history_rows, n_items)
         checks = np.ascontiguousarray(np.stack(counts, axis=1)) if counts else np.zeros((n_items, 0), np.int64)
-        rows = _bootstrap_rows(vals, st, av, checks, item_seeds(seed, n_items), int(n_samples),
+        rows = _bootstrap_rows(vals, hrows, st, av, checks, item_seeds(seed, n_items), int(n_samples),
                                bool(jitter), cap)
     else:
         rows = []
