@@ -277,3 +277,25 @@ def test_bad_input_gets_one_line_errors(input_error):
     input_error(lambda: dist.pmf_quantiles(np.array([[1.0]]), [1.5]), "levels")
     with pytest.raises(InputError):
         dist.demand_pmf("zip", {"pi": [0.1, 0.2], "lam": [1.0]}, [1.0, 1.0], periods=1)
+
+
+def test_large_counts_keep_an_exact_grid():
+    # scipy.stats.poisson at a high volume: the log-probability of the mode is large, yet the grid
+    # must stay near mean + 12 sd and the quantiles exact
+    pmf = dist.demand_pmf("zip", {"pi": [0.0], "lam": [2.0e4]}, [2.0e4], periods=5)
+    assert pmf.shape[1] < 1e5 + 12 * np.sqrt(1e5) + 10
+    np.testing.assert_array_equal(dist.pmf_quantiles(pmf, LEVELS)[0], stats.poisson.ppf(LEVELS, 1e5))
+    # NB with a very large size is Poisson-like; mean and variance mu + mu^2 / r still hold
+    nb = dist.demand_pmf("zinb", {"pi": [0.0], "mu": [50.0], "r": [1e9]}, [50.0], periods=20)
+    assert dist.pmf_mean(nb)[0] == pytest.approx(1000.0, rel=1e-10)
+    assert dist.pmf_var(nb)[0] == pytest.approx(1000.0 + 20 * 2500 / 1e9, rel=1e-8)
+
+
+def test_bootstrap_history_rows_read_a_subset_in_place():
+    rng = np.random.default_rng(4)
+    values = np.where(rng.random((5, 200)) < 0.3, rng.integers(1, 4, (5, 200)), 0).astype(float)
+    seeds = np.array([11, 12])
+    by_row = dist.demand_pmf("empirical", None, [0.0, 0.0], periods=3, values=values,
+                             history_rows=[4, 1], seed=seeds)
+    copied = dist.demand_pmf("empirical", None, [0.0, 0.0], periods=3, values=values[[4, 1]], seed=seeds)
+    np.testing.assert_array_equal(by_row, copied)

@@ -311,3 +311,19 @@ def test_options_are_validated_with_one_line_messages(input_error):
     input_error(lambda: stock_targets(fit, lead_time=1, service_level="high"), "--service-level")
     input_error(lambda: stock_targets(_fit("x", "empirical", [1.0]), lead_time=1, service_level=0.9),
                 "bootstrap", "history")
+
+
+def test_bootstrap_history_from_a_panel_skips_stock_out_zeros():
+    # zeros recorded while out of stock are not demand: with them masked the item sells 4 units
+    # every period, so any lead time of 2 periods needs exactly 8
+    from sparsedemand.panel import DemandPanel
+
+    values = np.array([[4, 0, 4, 0, 4, 4, 0, 4], [1, 0, 0, 0, 1, 0, 0, 0]], dtype=float)
+    available = np.array([[1, 0, 1, 0, 1, 1, 0, 1], [1] * 8], dtype=bool)
+    panel = DemandPanel(values, items=pd.Index(["valve", "seal"]), periods=pd.RangeIndex(8),
+                        available=available)
+    fit = _fit("mean_recent", "empirical", [4.0, 0.25])
+    table = stock_targets(fit, lead_time=2, service_level=0.99, history=panel, jitter=False)
+    assert table["item"].tolist() == ["valve", "seal"]
+    assert table.loc[0, "reorder_point"] == 8 and table.loc[0, "order_up_to"] == 12
+    assert table.loc[0, "lot_size"] == pytest.approx(4.0)  # the in-stock demand rate per period

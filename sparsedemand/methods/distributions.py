@@ -902,6 +902,7 @@ def demand_pmf(
     jitter: bool = True,
     max_units: int | None = None,
     items=None,
+    history_rows=None,
 ) -> np.ndarray:
     """PMF of total demand over ``periods`` consecutive periods, one row per item.
 
@@ -919,8 +920,10 @@ def demand_pmf(
     periods : int or ndarray of int (n_items,)
         Number of periods summed, >= 0 (0 gives all mass on 0).
     values, start, available : ndarray, optional
-        Demand history (items x periods), first-demand offsets and availability
-        mask, needed for ``"empirical"`` only.
+        Demand history (rows x periods), first-demand offsets and availability
+        mask per row, needed for ``"empirical"`` only.
+    history_rows : ndarray of int (n_items,), optional
+        Row of the history holding each item (default: row ``i`` is item ``i``).
     seed : int or ndarray of int (n_items,)
         Bootstrap seed (one for the call, or one per item).
     n_samples : int
@@ -948,7 +951,7 @@ def demand_pmf(
     """
     return demand_pmfs(kind, dist_params, mean, periods=[periods], values=values, start=start,
                        available=available, seed=seed, n_samples=n_samples, jitter=jitter,
-                       max_units=max_units, items=items)[0]
+                       max_units=max_units, items=items, history_rows=history_rows)[0]
 
 
 def distribution_labels(kind: str, dist_params: Mapping | None = None, n_items: int | None = None) -> np.ndarray:
