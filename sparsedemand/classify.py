@@ -330,13 +330,15 @@ def pattern_summary(table: pd.DataFrame, panel) -> pd.DataFrame:
 def _check_options(**opts) -> dict:
     """Validate the options; return them as plain Python values."""
 
-    def number(name, low, *, allow_none=False):
+    def number(name, low, *, strict=False, allow_none=False):
         value = opts[name]
         if value is None and allow_none:
             return None
-        ok = isinstance(value, Real) and not isinstance(value, bool)
-        if not ok or not math.isfinite(value) or value < low:
-            raise InputError(f"{name} must be a finite number >= {low:g}, got {value!r}")
+        ok = isinstance(value, Real) and not isinstance(value, bool) and math.isfinite(value)
+        if not ok or value < low or (strict and value == low):
+            bound = f"{'>' if strict else '>='} {low:g}"
+            off = " (or None to turn the check off)" if allow_none else ""
+            raise InputError(f"{name} must be a finite number {bound}{off}, got {value!r}")
         return float(value)
 
     def integer(name, low):
@@ -348,20 +350,15 @@ def _check_options(**opts) -> dict:
     rule = opts["rule"]
     if rule not in RULES:
         raise InputError(f"rule must be one of {', '.join(RULES)}, got {rule!r}")
-    out = {
+    return {
         "rule": rule,
-        "adi_cutoff": number("adi_cutoff", 1.0),
-        "cv2_cutoff": number("cv2_cutoff", 0.0),
-        "min_demands": integer("min_demands", 2),
+        "adi_cutoff": number("adi_cutoff", 1.0),  # ADI is never below 1
+        "cv2_cutoff": number("cv2_cutoff", 0.0, strict=True),
+        "min_demands": integer("min_demands", 2),  # CV² needs two sizes
         "min_periods": integer("min_periods", 1),
-        "quiet_factor": number("quiet_factor", 0.0, allow_none=True),
+        "quiet_factor": number("quiet_factor", 0.0, strict=True, allow_none=True),
         "quiet_min": integer("quiet_min", 1),
     }
-    if out["quiet_factor"] == 0.0:
-        raise InputError("quiet_factor must be a finite number > 0 (or None to turn the check off), got 0")
-    if out["cv2_cutoff"] == 0.0:
-        raise InputError("cv2_cutoff must be a finite number > 0, got 0")
-    return out
 
 
 def _figures(panel: DemandPanel) -> dict:
