@@ -13,7 +13,7 @@ from numba import njit
 
 from .croston import bias_factor, croston_item
 from .events import Events, run_in_threads
-from .optimize import MSE, STATE_SIZE, plan_ask, plan_best, plan_start, plan_tell
+from .optimize import MSE, STATE_SIZE, WORK_SIZE, plan_ask, plan_best, plan_start, plan_tell
 from .smoothing import ses_item
 from .tsb import tsb_item
 
@@ -26,37 +26,41 @@ SMOOTH_ROWS = {"mean": 0, "cost": 1, "alpha": 2, "beta": 3, "p": 4, "z": 5, "mse
 _NAN = np.nan
 
 
-@njit(cache=True, nogil=True)
-def smooth_item(method, pos, size, n, a, b, cost_code):
-    """(forecast, cost, p, z) of one item; p and z are NaN for SES."""
+@njit("UniTuple(float64, 4)(int64, int64[::1], float64[::1], int64, float64, float64, int64, float64[::1])", cache=True, nogil=True)
+def smooth_item(method, pos, size, n, a, b, cost_code, work):
+    """(forecast, cost, p, z) of one item; p and z are NaN for SES; ``work``: scratch."""
     if method <= SBJ:
         f, c, z, x = croston_item(pos, size, n, a, b, method, cost_code)
         return f, c, bias_factor(method, b) / x, z
     if method == TSB:
-        return tsb_item(pos, size, n, a, b, cost_code)
-    f, c = ses_item(pos, size, n, a, cost_code)
+        return tsb_item(pos, size, n, a, b, cost_code, work)
+    f, c = ses_item(pos, size, n, a, cost_code, work)
     return f, c, _NAN, _NAN
 
 
-@njit(cache=True, nogil=True)
+@njit("UniTuple(float64, 7)(int64, int64[::1], float64[::1], int64, float64, float64, boolean, int64, float64, float64, float64[::1])", cache=True, nogil=True)
 def smooth_fit_item(method, pos, size, n, alpha, beta, tie, cost_code, lo, hi, st):
-    """Optimise the NaN constants of one item, then fit: (f, cost, a, b, p, z, mse)."""
+    """Optimise the NaN constants of one item, then fit: (f, cost, a, b, p, z, mse).
+
+    ``st`` holds ``WORK_SIZE`` floats: the search state, then scratch.
+    """
+    work = st[STATE_SIZE:]
     plan_start(st, alpha, beta, tie, lo, hi)
     while True:
         a, b = plan_ask(st)
         if a != a:
             break
-        plan_tell(st, smooth_item(method, pos, size, n, a, b, cost_code)[1])
+        plan_tell(st, smooth_item(method, pos, size, n, a, b, cost_code, work)[1])
     a, b, _ = plan_best(st)
-    f, c, p, z = smooth_item(method, pos, size, n, a, b, cost_code)
-    mse = c if cost_code == MSE else smooth_item(method, pos, size, n, a, b, MSE)[1]
+    f, c, p, z = smooth_item(method, pos, size, n, a, b, cost_code, work)
+    mse = c if cost_code == MSE else smooth_item(method, pos, size, n, a, b, MSE, work)[1]
     return f, c, a, b, p, z, mse
 
 
 @njit(cache=True, nogil=True)
 def _smooth_panel(i0, i1, indptr, pos, size, length, method, alpha, beta, tie, cost_code, lo, hi,
                   out):
-    st = np.empty(STATE_SIZE)
+    st = np.empty(WORK_SIZE)
     for i in range(i0, i1):
         n = length[i]
         if n == 0:

@@ -40,7 +40,7 @@ from ._input import (
     run_public,
 )
 from .events import run_in_threads, size_moments
-from .optimize import STATE_SIZE
+from .optimize import WORK_SIZE
 
 __all__ = ["adida", "imapa", "aggregate_item", "AGGREGATE_METHODS"]
 
@@ -78,7 +78,7 @@ def aggregate_item(pos, size, n, level, out_pos, out_size):
     return k, n_buckets - b0
 
 
-@njit(cache=True, nogil=True)
+@njit("int64(int64, int64, int64)", cache=True, nogil=True)
 def _mean_interval_level(n, k, minimum):
     return max(minimum, int(np.floor(n / k + 0.5)))
 
@@ -99,7 +99,7 @@ def _adida_item(method, pos, size, n, level, alpha, cost_code, lo, hi, st, bp, b
 @njit(cache=True, nogil=True)
 def _aggregate_panel(i0, i1, indptr, pos, size, length, method, alpha, cost_code, lo, hi, level,
                      combine, out):
-    st = np.empty(STATE_SIZE)
+    st = np.empty(WORK_SIZE)
     for i in range(i0, i1):
         n = length[i]
         if n == 0:

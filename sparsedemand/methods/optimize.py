@@ -38,7 +38,8 @@ One free constant: an evenly spaced grid of ``GRID_1D`` points over the
 bounds, then golden-section refinement inside the two grid cells around the
 best grid point, to a width of ``TOL``. Two free constants: a ``GRID_2D`` x
 ``GRID_2D`` grid, then ``ROUNDS_2D`` rounds of golden-section line searches
-along each axis around the incumbent. The result is the best point ever
+(to a width of ``TOL_2D``) along each axis around the incumbent, the second
+round in half-cells. The result is the best point ever
 evaluated, so it is never worse than any grid point; ties keep the earliest
 point (the smaller constant).
 
@@ -70,6 +71,7 @@ __all__ = [
     "MAR",
     "MSR",
     "STATE_SIZE",
+    "WORK_SIZE",
     "GRID_1D",
     "GRID_2D",
     "TOL",
@@ -77,6 +79,9 @@ __all__ = [
     "run_geometric",
     "point_error",
     "finish_cost",
+    "fill_powers",
+    "geometric_sums",
+    "POWERS",
     "line_start",
     "line_ask",
     "line_tell",
@@ -89,16 +94,17 @@ __all__ = [
 COSTS = ("mse", "mae", "mar", "msr")
 MSE, MAE, MAR, MSR = 0, 1, 2, 3
 
-GRID_1D = 20
-GRID_2D = 7
+GRID_1D = 16
+GRID_2D = 5
 ROUNDS_2D = 2
 TOL = 1e-4
+TOL_2D = 1e-3
 _INVPHI = (math.sqrt(5.0) - 1.0) / 2.0
 _INF = np.inf
 
 
 # --------------------------------------------------------------------- costs
-@njit(cache=True, nogil=True)
+@njit("UniTuple(float64, 2)(int64, float64, float64, float64)", cache=True, nogil=True)
 def point_error(code, acc, cum, e):
     """Add one error ``e``; return the new (accumulated cost, cumulative error)."""
     cum += e
@@ -113,7 +119,7 @@ def point_error(code, acc, cum, e):
     return acc, cum
 
 
-@njit(cache=True, nogil=True)
+@njit("UniTuple(float64, 2)(int64, float64, float64, float64, int64)", cache=True, nogil=True)
 def run_constant(code, acc, cum, f, m):
     """Add ``m`` periods of zero demand forecast at a constant ``f >= 0``.
 
@@ -147,34 +153,34 @@ def run_constant(code, acc, cum, f, m):
     return acc, cum - mf * f
 
 
-@njit(cache=True, nogil=True)
-def run_geometric(code, acc, cum, f0, r, m):
+@njit(
+    "UniTuple(float64, 2)(int64, float64, float64, float64, float64, float64, float64, float64,"
+    " float64, int64)",
+    cache=True,
+    nogil=True,
+)
+def run_geometric(code, acc, cum, f0, r, log_r, rm, sm, qm, m):
     """Add ``m`` periods of zero demand forecast at ``f0 * r**k`` (k = 0 .. m-1).
 
-    Requires ``0 <= r < 1``. Returns (accumulated cost, cumulative error,
-    ``r**m``); the last lets the caller decay its state over the run.
+    Requires ``0 <= r < 1``, ``log_r = log(r)`` (``-inf`` for 0) and the sums
+    of :func:`geometric_sums`: ``rm = r**m``, ``sm = sum r**k`` and
+    ``qm = sum r**(2k)`` over ``k < m``. Returns (accumulated cost,
+    cumulative error).
     """
     if m <= 0:
-        return acc, cum, 1.0
-    mf = float(m)
-    if r <= 0.0:
-        rm = 0.0
-    else:
-        rm = math.exp(mf * math.log(r))
-    one_r = 1.0 - r
-    rm2 = rm * rm
+        return acc, cum
     if code == MSE:
-        acc += f0 * f0 * (1.0 - rm2) / (1.0 - r * r)
+        acc += f0 * f0 * qm
     elif code == MAE:
-        acc += f0 * (1.0 - rm) / one_r
+        acc += f0 * sm
     else:
         # E_k = A + B r**k for k = 1 .. m
-        big_b = f0 / one_r
+        mf = float(m)
+        big_b = f0 / (1.0 - r)
         big_a = cum - big_b
-        q1 = r * (1.0 - rm) / one_r
+        q1 = r * sm
         if code == MSR:
-            q2 = r * r * (1.0 - rm2) / (1.0 - r * r)
-            acc += mf * big_a * big_a + 2.0 * big_a * big_b * q1 + big_b * big_b * q2
+            acc += mf * big_a * big_a + 2.0 * big_a * big_b * q1 + big_b * big_b * r * r * qm
         elif big_b <= 0.0:
             acc += mf * abs(big_a)
         else:
@@ -186,15 +192,45 @@ def run_geometric(code, acc, cum, f0, r, m):
                 if level >= 1.0 or r <= 0.0:
                     c = 0.0
                 else:
-                    c = math.floor(math.log(level) / math.log(r))
+                    c = math.floor(math.log(level) / log_r)
                     c = min(max(c, 0.0), mf)
-            rc = math.exp(c * math.log(r)) if r > 0.0 else (1.0 if c == 0.0 else 0.0)
-            q1c = r * (1.0 - rc) / one_r
+            rc = math.exp(c * log_r) if r > 0.0 else (1.0 if c == 0.0 else 0.0)
+            q1c = r * (1.0 - rc) / (1.0 - r)
             head = c * big_a + big_b * q1c
             tail = (mf - c) * big_a + big_b * (q1 - q1c)
             acc += head - tail
-    cum -= f0 * (1.0 - rm) / one_r
-    return acc, cum, rm
+    return acc, cum - f0 * sm
+
+
+POWERS = 64
+
+
+@njit("void(float64[::1], float64)", cache=True, nogil=True)
+def fill_powers(work, r):
+    """Tables for ``m < POWERS``: ``r**m``, ``sum r**k`` and ``sum r**(2k)`` over ``k < m``.
+
+    Most gaps between demands are short, so lookups replace ``exp`` and
+    divisions in the inner loops.
+    """
+    x = 1.0
+    s = 0.0
+    q = 0.0
+    for m in range(POWERS):
+        work[m] = x
+        work[POWERS + m] = s
+        work[2 * POWERS + m] = q
+        s += x
+        q += x * x
+        x *= r
+
+
+@njit("UniTuple(float64, 3)(float64[::1], float64, float64, int64)", cache=True, nogil=True)
+def geometric_sums(work, r, log_r, m):
+    """(``r**m``, ``sum r**k``, ``sum r**(2k)``) over ``k < m``, from the tables when short."""
+    if m < POWERS:
+        return work[m], work[POWERS + m], work[2 * POWERS + m]
+    rm = math.exp(m * log_r) if r > 0.0 else 0.0
+    return rm, (1.0 - rm) / (1.0 - r), (1.0 - rm * rm) / (1.0 - r * r)
 
 
 @njit(cache=True, nogil=True)
@@ -207,14 +243,14 @@ def finish_cost(acc, count):
 
 # ------------------------------------------------------------ 1-D line search
 # state layout of a line search (offsets inside the state array)
-_PH, _LO, _HI, _N, _I, _BX, _BF, _BI, _A, _B, _C, _D, _FC, _FD, _STG, _X = range(16)
-_LINE = 16
+_PH, _LO, _HI, _N, _I, _BX, _BF, _BI, _A, _B, _C, _D, _FC, _FD, _STG, _X, _TL = range(17)
+_LINE = 17
 _GRID, _GOLD, _DONE = 0.0, 1.0, 2.0
 
 
-@njit(cache=True, nogil=True)
+@njit("void(float64[::1], int64, float64, float64)", cache=True, nogil=True)
 def _golden_setup(st, o, a, b):
-    if b - a <= TOL:
+    if b - a <= st[o + _TL]:
         st[o + _PH] = _DONE
         return
     st[o + _A] = a
@@ -225,9 +261,10 @@ def _golden_setup(st, o, a, b):
     st[o + _PH] = _GOLD
 
 
-@njit(cache=True, nogil=True)
-def line_start(st, o, lo, hi, n_grid):
-    """Start a search of [lo, hi] in ``st[o:o+16]``; ``n_grid < 2`` means golden only."""
+@njit("void(float64[::1], int64, float64, float64, int64, float64)", cache=True, nogil=True)
+def line_start(st, o, lo, hi, n_grid, tol):
+    """Search [lo, hi] to width ``tol`` in ``st[o:o+17]``; ``n_grid < 2``: golden only."""
+    st[o + _TL] = tol
     st[o + _LO] = lo
     st[o + _HI] = hi
     st[o + _N] = n_grid
@@ -241,7 +278,7 @@ def line_start(st, o, lo, hi, n_grid):
         _golden_setup(st, o, lo, hi)
 
 
-@njit(cache=True, nogil=True)
+@njit("float64(float64[::1], int64)", cache=True, nogil=True)
 def line_ask(st, o):
     """Next point to evaluate, NaN when the search is over."""
     ph = st[o + _PH]
@@ -256,7 +293,7 @@ def line_ask(st, o):
     return x
 
 
-@njit(cache=True, nogil=True)
+@njit("void(float64[::1], int64, float64)", cache=True, nogil=True)
 def line_tell(st, o, value):
     """Report the cost at the point last asked for."""
     if value != value:
@@ -309,7 +346,7 @@ def line_tell(st, o, value):
     st[o + _B] = b
     st[o + _C] = c
     st[o + _D] = d
-    if b - a <= TOL:
+    if b - a <= st[o + _TL]:
         st[o + _PH] = _DONE
 
 
@@ -318,11 +355,12 @@ def line_tell(st, o, value):
 _MODE, _FA, _FB, _BA2, _BB2, _BF2, _LO2, _HI2, _AXIS, _ROUND, _STEP, _GI, _AA, _AB = range(14)
 _SUB = 16
 STATE_SIZE = _SUB + _LINE
+WORK_SIZE = STATE_SIZE + 3 * POWERS  # search state, then the tables of fill_powers
 _FIXED, _FREE_A, _FREE_B, _TIED, _BOTH = 0.0, 1.0, 2.0, 3.0, 4.0
 _PLAN_GRID, _PLAN_LINE, _PLAN_DONE = 0.0, 1.0, 2.0
 
 
-@njit(cache=True, nogil=True)
+@njit("void(float64[::1], float64, float64, boolean, float64, float64)", cache=True, nogil=True)
 def plan_start(st, alpha, beta, tie, lo, hi):
     """Prepare the search for (alpha, beta); NaN marks a constant to optimise.
 
@@ -355,7 +393,7 @@ def plan_start(st, alpha, beta, tie, lo, hi):
         st[_GI] = 0.0
     else:
         st[_STEP] = _PLAN_LINE
-        line_start(st, _SUB, lo, hi, GRID_1D)
+        line_start(st, _SUB, lo, hi, GRID_1D, TOL)
 
 
 @njit(cache=True, nogil=True)
@@ -401,7 +439,7 @@ def _plan_axis(st):
     hi = st[_HI2]
     h = (hi - lo) / (GRID_2D - 1.0) / (1.0 + st[_ROUND])
     centre = st[_BA2] if st[_AXIS] == 0.0 else st[_BB2]
-    line_start(st, _SUB, max(lo, centre - h), min(hi, centre + h), 0)
+    line_start(st, _SUB, max(lo, centre - h), min(hi, centre + h), 0, TOL_2D)
 
 
 @njit(cache=True, nogil=True)

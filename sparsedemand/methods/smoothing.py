@@ -20,6 +20,8 @@ coefficient of variation of 1).
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numba import njit
 
@@ -34,26 +36,32 @@ from ._input import (
     run_public,
 )
 from .events import run_in_threads
-from .optimize import MSE, finish_cost, point_error, run_constant, run_geometric
+from .optimize import MSE, fill_powers, finish_cost, geometric_sums, point_error, run_constant, run_geometric
 
 __all__ = ["ses", "moving_average", "ses_item", "ma_item", "window_mean"]
 
 
-@njit(cache=True, nogil=True)
-def ses_item(pos, size, n, alpha, cost_code):
-    """One item: (forecast, in-sample cost)."""
+@njit("UniTuple(float64, 2)(int64[::1], float64[::1], int64, float64, int64, float64[::1])", cache=True, nogil=True)
+def ses_item(pos, size, n, alpha, cost_code, work):
+    """One item: (forecast, in-sample cost); ``work``: scratch of ``3 * POWERS`` floats."""
     k = pos.shape[0]
     level = size[0]
     r = 1.0 - alpha
+    log_r = math.log(r) if r > 0.0 else -math.inf
+    fill_powers(work, r)
     acc = 0.0
     cum = 0.0
     for j in range(1, k):
-        acc, cum, decay = run_geometric(cost_code, acc, cum, level, r, pos[j] - pos[j - 1] - 1)
+        m = pos[j] - pos[j - 1] - 1
+        decay, sm, qm = geometric_sums(work, r, log_r, m)
+        acc, cum = run_geometric(cost_code, acc, cum, level, r, log_r, decay, sm, qm, m)
         level *= decay
         y = size[j]
         acc, cum = point_error(cost_code, acc, cum, y - level)
         level += alpha * (y - level)
-    acc, cum, decay = run_geometric(cost_code, acc, cum, level, r, n - 1 - pos[k - 1])
+    m = n - 1 - pos[k - 1]
+    decay, sm, qm = geometric_sums(work, r, log_r, m)
+    acc, cum = run_geometric(cost_code, acc, cum, level, r, log_r, decay, sm, qm, m)
     return level * decay, finish_cost(acc, n - 1)
 
 
@@ -69,7 +77,7 @@ def window_mean(pos, size, n, w):
     return total / ww
 
 
-@njit(cache=True, nogil=True)
+@njit("UniTuple(float64, 2)(int64[::1], float64[::1], int64, int64, int64)", cache=True, nogil=True)
 def ma_item(pos, size, n, w, cost_code):
     """One item: (forecast, in-sample cost) of the moving average of order ``w``."""
     k = pos.shape[0]

@@ -112,7 +112,7 @@ def _nb_positive_ll(vals, cnts, k, total, mu, r):
     return s + k * _log_p0(mu, r) + total * (math.log(mu) - math.log(r + mu))
 
 
-@njit(cache=True, nogil=True)
+@njit("UniTuple(float64, 2)(float64[::1], float64[::1], int64, int64, float64, boolean, float64)", cache=True, nogil=True)
 def _profile(vals, cnts, k, n, total, truncated, r):
     # negative profile log-likelihood at r: truncated positives, or plain NB on all n
     if truncated:
@@ -123,9 +123,9 @@ def _profile(vals, cnts, k, n, total, truncated, r):
     return mu, -(_nb_positive_ll(vals, cnts, k, total, mu, r) + (n - k) * _log_p0(mu, r))
 
 
-@njit(cache=True, nogil=True)
+@njit("UniTuple(float64, 2)(float64[::1], float64[::1], int64, int64, float64, boolean, float64[::1])", cache=True, nogil=True)
 def _fit_r(vals, cnts, k, n, total, truncated, st):
-    line_start(st, 0, math.log(_R_LOW), math.log(_R_HIGH), 20)
+    line_start(st, 0, math.log(_R_LOW), math.log(_R_HIGH), 16, 1e-3)
     best_u = math.log(_R_HIGH)
     best = np.inf
     while True:
