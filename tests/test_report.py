@@ -375,10 +375,6 @@ def test_out_must_not_be_a_folder(tmp_path, input_error):
 
 
 def test_report_from_a_routed_forecast(tmp_path):
-    from sparsedemand import methods
-
-    if not hasattr(methods, "OPTIMISABLE"):
-        pytest.skip("the router needs sparsedemand.methods.OPTIMISABLE, not there yet")
     from sparsedemand.classify import classify
     from sparsedemand.io import write_table
     from sparsedemand.route import forecast
