@@ -886,6 +886,8 @@ def _pattern_summary(classes: pd.DataFrame, volume: pd.Series | None) -> pd.Data
 
 def _warning_kinds(audit: pd.DataFrame) -> pd.DataFrame:
     """Warnings with their numbers replaced by N, counted by kind."""
+    if "warnings" not in audit.columns:
+        return pd.DataFrame(columns=["warning", "items"])
     flagged = _warning_mask(audit)
     counts: dict[str, int] = {}
     for text in audit.loc[flagged, "warnings"].astype(str):
@@ -985,7 +987,8 @@ def _backtest_section(ctx: _Context) -> str:
                              "a calibrated forecast of level 90% covers about 90% (the dashed line)."))
         out.append(_quantile_chart(part, fam, colours))
 
-    if {"fill_rate", "avg_on_hand"} <= set(overall["metric"]):
+    service = overall[overall["metric"].isin(["fill_rate", "avg_on_hand"])].dropna(subset=["value"])
+    if service.groupby("method")["metric"].nunique().eq(2).any():
         out.append("<h3>Inventory simulation: fill rate against stock on hand</h3>")
         out.append(_note("Each method's quantile forecasts drove the same order-up-to policy over the held-back "
                          "periods; up and to the left is better (more demand served from less stock)."))
@@ -1095,11 +1098,12 @@ def _stock_section(ctx: _Context) -> str:
                        ("safety_stock", "safety stock (units)"),
                        ("safety_stock_value", "safety stock value" + (" (units x unit price)" if computed_value else "")),
                        ("order_quantity", "suggested order quantity now (units)")):
-        if col in st.columns:
+        if col in st.columns and _is_number_column(st[col]):
             totals.append((label, _num(st[col].sum())))
-    if {"order_quantity", "unit_price"} <= set(st.columns):
+    if {"order_quantity", "unit_price"} <= set(st.columns) and all(
+            _is_number_column(st[c]) for c in ("order_quantity", "unit_price")):
         totals.append(("value of the suggested orders", _num((st["order_quantity"] * st["unit_price"]).sum())))
-    if "expected_fill_rate" in st.columns:
+    if "expected_fill_rate" in st.columns and _is_number_column(st["expected_fill_rate"]):
         totals.append(("expected fill rate, average over items", _share(float(st["expected_fill_rate"].mean()))))
     if "distribution" in st.columns:
         kinds = st["distribution"].astype(str).value_counts()
@@ -1113,7 +1117,7 @@ def _stock_section(ctx: _Context) -> str:
                         "distribution") if c in st.columns]
     n = ctx.table_rows
     for col, label in (("safety_stock", "units"), ("safety_stock_value", "value")):
-        if col not in st.columns or not st[col].notna().any():
+        if col not in st.columns or not _is_number_column(st[col]) or not st[col].notna().any():
             continue
         top = st.nlargest(n, col)
         out.append(f"<h3>Largest safety stock by {label}</h3>")

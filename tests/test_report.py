@@ -209,6 +209,28 @@ def test_open_metric_set_without_pattern_or_level_columns(tmp_path):
 # ------------------------------------------------------------------ partial folders and history
 
 
+def test_tables_with_only_their_required_columns(tmp_path):
+    tables = {
+        "patterns": pd.DataFrame({"item": ["A", "B"], "pattern": ["lumpy", "never-sold"]}),
+        "forecasts": pd.DataFrame({"item": ["A", "A", "B"], "step": [1, 2, 1], "forecast": [0.5, 0.5, 0.0]}),
+        "audit": pd.DataFrame({"item": ["A", "B"], "pattern": ["lumpy", "never-sold"],
+                               "method": ["tsb", "zeros"]}),
+        "scores": pd.DataFrame({"method": ["router"], "metric": ["mase"], "value": [0.9]}),
+        "item_scores": pd.DataFrame({"item": ["A"], "method": ["router"]}),
+        "stock": pd.DataFrame({"item": ["A", "B"], "safety_stock": ["unknown", "2"]}),
+    }
+    for name, frame in tables.items():
+        frame.to_csv(tmp_path / f"{name}.csv", index=False)
+    html = build_report(tmp_path).read_text(encoding="utf-8")
+    assert "no naive baseline rows" in section(html, "backtest")
+    assert "items with a stock target</dt><dd>2</dd>" in section(html, "stock")
+    assert "safety stock (units)" not in section(html, "stock")  # not numbers: not added up
+    # ADI and CV² are absent: the map is left out with a note, the pages still come
+    assert "<img " not in section(html, "patterns")
+    assert section(html, "items").count('<article class="item"') == 0  # nothing flagged, no volume
+    assert len(audit_rows(html)) == 2
+
+
 def test_missing_tables_leave_a_note_naming_the_command(tmp_path):
     make_run(tmp_path, tables=("patterns",))
     html = build_report(tmp_path, out=tmp_path / "r.html").read_text(encoding="utf-8")
