@@ -370,11 +370,12 @@ def plan_start(st, alpha, beta, tie, lo, hi):
     st[_HI2] = hi
     st[_FA] = alpha
     st[_FB] = beta
-    st[_BA2] = alpha
-    st[_BB2] = alpha if tie else beta
-    st[_BF2] = _INF
     free_a = alpha != alpha
     free_b = (not tie) and beta != beta
+    # a free constant starts at the lower bound, kept when no cost is defined
+    st[_BA2] = lo if free_a else alpha
+    st[_BB2] = st[_BA2] if tie else (lo if free_b else beta)
+    st[_BF2] = _INF
     if tie:
         st[_MODE] = _TIED if free_a else _FIXED
     elif free_a and free_b:
