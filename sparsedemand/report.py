@@ -82,6 +82,7 @@ __all__ = [
     "BASELINES",
     "STOCK_CAUTION",
     "LEVEL_ALPHA",
+    "ses_level",
 ]
 
 # table name -> (columns it must have, the command that writes it)

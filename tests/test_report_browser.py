@@ -13,7 +13,6 @@ import shutil
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from report_run import make_run
