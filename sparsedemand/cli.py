@@ -12,16 +12,12 @@ import sys
 from pathlib import Path
 
 import click
+import numpy as np
+import pandas as pd
 
 from . import __version__
 from .errors import InputError
 from .io import Columns, FREQUENCIES, read_demand
-
-CAUTION = (
-    "Caution: these targets are decision support. For safety-critical spares follow your "
-    "organisation's policies, the applicable regulations and the judgement of qualified staff."
-)
-
 
 class Console:
     """Where messages and progress go: stderr, silenced by ``--quiet``."""
@@ -207,9 +203,11 @@ def _parse_levels(text: str) -> tuple[float, ...]:
     return levels
 
 
+horizon_option = click.option("--horizon", required=True, type=int, help="Periods to forecast.")
+
+
 def forecast_options(func):
     options = [
-        click.option("--horizon", required=True, type=int, help="Periods to forecast."),
         click.option("--quantiles", "levels", default="0.5,0.8,0.9,0.95", show_default=True,
                      help="Quantile levels of the predictive distribution, comma separated."),
         click.option("--policy", "policy_file", type=click.Path(dir_okay=False, path_type=Path),
@@ -228,12 +226,15 @@ def forecast_options(func):
     return func
 
 
-def pop_forecast_options(kwargs: dict) -> dict:
+def pop_horizon(kwargs: dict) -> int:
     horizon = kwargs.pop("horizon")
     if horizon < 1:
         raise InputError(f"--horizon must be at least 1, got {horizon}")
+    return horizon
+
+
+def pop_forecast_options(kwargs: dict) -> dict:
     return {
-        "horizon": horizon,
         "levels": _parse_levels(kwargs.pop("levels")),
         "policy": kwargs.pop("policy_file"),
         "overrides": kwargs.pop("override_file"),
@@ -246,6 +247,7 @@ def pop_forecast_options(kwargs: dict) -> dict:
 @cli.command("forecast")
 @input_options
 @classify_options
+@horizon_option
 @forecast_options
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
               help="Folder for forecasts and the audit table.")
@@ -257,14 +259,10 @@ def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
 
     console = Console(kwargs.pop("quiet"))
     copts = pop_classify_options(kwargs)
+    horizon = pop_horizon(kwargs)
     fopts = pop_forecast_options(kwargs)
-    policy = _load_rules(fopts, kwargs)
-    panel, _, columns = load_input(kwargs, console)
-    overrides = _load_overrides(fopts, columns)
-    horizon = fopts.pop("horizon")
-    result = forecast(panel, horizon, policy=policy, overrides=overrides, classify_options=copts,
-                      progress=console.progress, **{k: v for k, v in fopts.items()
-                                                    if k not in ("policy", "overrides")})
+    panel, _, _ = load_input(kwargs, console)
+    result = routed_forecast(panel, horizon, fopts, copts, console)
     with staged_output(out_dir) as stage:
         write_table(result.table(), stage / f"forecasts.{fmt}")
         write_table(result.audit, stage / f"audit.{fmt}")
@@ -274,29 +272,173 @@ def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     console.say(f"wrote {out_dir}/forecasts.{fmt} and {out_dir}/audit.{fmt}")
 
 
-def _load_rules(fopts: dict, kwargs: dict):
-    from .route import load_policy
+def routed_forecast(panel, horizon: int, fopts: dict, copts: dict, console: Console):
+    """The router's forecast with the CLI's options (policy and override files read here)."""
+    from .route import forecast, load_overrides, load_policy
 
-    path = fopts.get("policy")
-    return load_policy(path) if path is not None else None
-
-
-def _load_overrides(fopts: dict, columns):
-    from .route import load_overrides
-
-    path = fopts.get("overrides")
-    return load_overrides(path) if path is not None else None
+    options = dict(fopts)
+    policy, overrides = options.pop("policy"), options.pop("overrides")
+    return forecast(
+        panel,
+        horizon,
+        policy=load_policy(policy) if policy is not None else None,
+        overrides=load_overrides(overrides) if overrides is not None else None,
+        classify_options=copts,
+        progress=console.progress,
+        **options,
+    )
 
 
 def _routing_summary(audit):
-    import pandas as pd
-
     counts = audit.groupby(["pattern", "method"]).size().rename("items")
     warned = audit["warnings"].astype(bool).groupby([audit["pattern"], audit["method"]]).sum()
     table = pd.concat([counts, warned.rename("with_warnings")], axis=1).reset_index()
     total = pd.DataFrame([{"pattern": "all", "method": "", "items": int(counts.sum()),
                            "with_warnings": int(warned.sum())}])
     return pd.concat([table, total], ignore_index=True).set_index(["pattern", "method"])
+
+
+# ------------------------------------------------------------------ stock
+
+
+def stock_options(func):
+    options = [
+        click.option("--lead-time", default=None, type=int,
+                     help="Replenishment lead time in periods (same for every item)."),
+        click.option("--lead-time-column", default=None,
+                     help="Input column with each item's lead time in periods (constant per item)."),
+        click.option("--review-period", default=1, show_default=True, type=int,
+                     help="Periods between reviews of the order-up-to policy."),
+        click.option("--service-level", default=None, type=float,
+                     help="Target cycle service level (probability of no stock-out per cycle)."),
+        click.option("--fill-rate", default=None, type=float,
+                     help="Target fill rate (share of demand met from stock); instead of --service-level."),
+        click.option("--on-hand", "on_hand_file", default=None,
+                     type=click.Path(dir_okay=False, path_type=Path),
+                     help="CSV snapshot of current stock: item, on_hand and optionally on_order columns."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
+
+
+def pop_stock_options(kwargs: dict) -> dict:
+    opts = {k: kwargs.pop(k) for k in ("lead_time", "lead_time_column", "review_period",
+                                       "service_level", "fill_rate", "on_hand_file")}
+    if (opts["lead_time"] is None) == (opts["lead_time_column"] is None):
+        raise InputError("give exactly one of --lead-time and --lead-time-column")
+    if opts["service_level"] is None and opts["fill_rate"] is None:
+        opts["service_level"] = 0.95
+    if opts["lead_time_column"]:
+        kwargs["attribute_columns"] = tuple(kwargs["attribute_columns"]) + (opts["lead_time_column"],)
+    return opts
+
+
+def read_on_hand(path: Path, items, *, item_column: str = "item"):
+    """Current stock per item from a snapshot CSV, aligned to ``items`` (NaN where absent)."""
+    from .io import load_frame
+
+    frame = load_frame(path, text_columns=(item_column,))
+    for col in (item_column, "on_hand"):
+        if col not in frame.columns:
+            found = ", ".join(map(str, frame.columns))
+            raise InputError(f"{path}: missing column '{col}' (columns found: {found})")
+    labels = frame[item_column].astype(str).str.strip()
+    dup = labels.duplicated()
+    if dup.any():
+        row = int(np.flatnonzero(dup.to_numpy())[0]) + 1
+        raise InputError(f"{path}, row {row}: item {labels.iloc[row - 1]!r} appears twice")
+    pos = pd.Index(items).get_indexer(labels)
+    if (pos < 0).any():
+        row = int(np.flatnonzero(pos < 0)[0]) + 1
+        raise InputError(f"{path}, row {row}: unknown item {labels.iloc[row - 1]!r} (not in the input)")
+    out = {}
+    for col in ("on_hand", "on_order"):
+        if col not in frame.columns:
+            continue
+        vals = pd.to_numeric(frame[col], errors="coerce").to_numpy(np.float64)
+        bad = np.isnan(vals) & frame[col].notna().to_numpy() | (vals < 0)
+        if bad.any():
+            row = int(np.flatnonzero(bad)[0]) + 1
+            raise InputError(f"{path}, row {row}, item {labels.iloc[row - 1]!r}: "
+                             f"{col} {frame[col].iloc[row - 1]!r} is not a number >= 0")
+        aligned = np.full(len(items), np.nan)
+        aligned[pos] = vals
+        out[col] = aligned
+    return out
+
+
+def lead_times(panel, opts: dict):
+    """Lead time per item: the option, or the item's value in the lead-time column."""
+    column = opts["lead_time_column"]
+    if column is None:
+        return opts["lead_time"]
+    raw = panel.attribute(column)
+    vals = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=np.float64)
+    bad = ~np.isfinite(vals) | (vals < 0) | (vals != np.round(vals))
+    if bad.any():
+        item = panel.items[int(np.flatnonzero(bad)[0])]
+        raise InputError(f"--lead-time-column {column}: item {item!r} has lead time "
+                         f"{raw.iloc[int(np.flatnonzero(bad)[0])]!r}, not a whole number >= 0")
+    return vals.astype(np.int64)
+
+
+def compute_stock(result, opts: dict):
+    """Stock targets for a routed forecast, with the CLI's options."""
+    from .stock import stock_targets
+
+    panel = result.panel
+    extra = {}
+    if opts["on_hand_file"] is not None:
+        snapshot = read_on_hand(opts["on_hand_file"], panel.items)
+        extra["on_hand"] = snapshot["on_hand"]
+        if "on_order" in snapshot:
+            extra["on_order"] = snapshot["on_order"]
+    price = panel.attribute("unit_price")
+    if price.notna().any():
+        extra["unit_price"] = price.to_numpy(dtype=float)
+    return stock_targets(
+        result.item_forecasts(),
+        lead_time=lead_times(panel, opts),
+        review_period=opts["review_period"],
+        service_level=opts["service_level"],
+        fill_rate=opts["fill_rate"],
+        history=panel,
+        items=panel.items,
+        seed=opts.get("seed", 0),
+        **extra,
+    )
+
+
+@cli.command("stock")
+@input_options
+@classify_options
+@forecast_options
+@stock_options
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for stock.csv (and the forecasts and audit behind it).")
+@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
+def stock_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
+    """Reorder points and order-up-to levels from the routed forecast distributions."""
+    from .io import staged_output, write_table
+    from .stock import totals_text
+
+    console = Console(kwargs.pop("quiet"))
+    copts = pop_classify_options(kwargs)
+    fopts = pop_forecast_options(kwargs)
+    sopts = pop_stock_options(kwargs)
+    sopts["seed"] = fopts["seed"]
+    panel, _, _ = load_input(kwargs, console)
+    # The forecast must cover the whole protection interval (lead time + review period).
+    horizon = int(np.max(lead_times(panel, sopts))) + sopts["review_period"]
+    result = routed_forecast(panel, horizon, fopts, copts, console)
+    table = compute_stock(result, sopts)
+    with staged_output(out_dir) as stage:
+        write_table(table, stage / f"stock.{fmt}")
+        write_table(result.table(), stage / f"forecasts.{fmt}")
+        write_table(result.audit, stage / f"audit.{fmt}")
+    click.echo(totals_text(table))
+    console.say(f"wrote {out_dir}/stock.{fmt}")
 
 
 # ------------------------------------------------------------------ entry point

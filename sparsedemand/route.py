@@ -287,6 +287,12 @@ class ForecastResult:
     groups: list = field(default_factory=list, repr=False)
     selection: pd.DataFrame | None = None
 
+    def item_forecasts(self):
+        """Means and predictive distributions of every item, for the stock stage."""
+        from .stock import gather_forecasts
+
+        return gather_forecasts([(rows, fitted) for rows, _, fitted in self.groups], self.panel.n_items)
+
     def table(self) -> pd.DataFrame:
         """The long forecast table written to ``forecasts.csv``."""
         long = self.quantiles.copy()
