@@ -82,8 +82,9 @@ def _simulate_series(rng: np.random.Generator, kind: str, days: int, weekday: np
     if rng.random() < 0.08:
         introduced = int(rng.integers(days // 5, 4 * days // 5))
     stop = days
-    if rng.random() < 0.07:
-        stop = int(rng.integers(max(introduced + 60, days // 2), days - 90))
+    first_stop = max(introduced + 60, days // 2)
+    if rng.random() < 0.07 and first_stop < days - 90:
+        stop = int(rng.integers(first_stop, days - 90))
     if kind == "fast":
         rate = rng.uniform(3.0, 14.0) * weekday * level
         demand = rng.poisson(rate).astype(float)
@@ -94,7 +95,9 @@ def _simulate_series(rng: np.random.Generator, kind: str, days: int, weekday: np
             "intermittent": (rng.uniform(0.01, 0.2), rng.uniform(1.0, 3.0), rng.uniform(0.0, 0.45)),
             "lumpy": (rng.uniform(0.005, 0.12), rng.uniform(2.0, 15.0), rng.uniform(0.9, 2.0)),
         }[kind]
-        occ = rng.random(days) < np.clip(p_occ * level * weekday / weekday.mean(), 0, 0.99)
+        # Frequent lines are ordered every day (workshops run weekends); slow ones follow the week.
+        profile = np.ones(days) if kind in ("smooth", "erratic") else weekday / weekday.mean()
+        occ = rng.random(days) < np.clip(p_occ * level * profile, 0, 0.99)
         if size_cv < 0.05:
             sizes = np.full(days, max(1.0, round(size_mean)))
         else:
@@ -139,9 +142,11 @@ def make_demo(spec: DemoSpec | None = None) -> pd.DataFrame:
         raise InputError(f"demo parts must be at least 1, got {spec.parts}")
     if spec.days < 28:
         raise InputError(f"demo days must be at least 28, got {spec.days}")
+    if spec.parts > 200_000:
+        raise InputError(f"demo parts must be at most 200,000, got {spec.parts}")
     rng = np.random.default_rng(spec.seed)
     dates = pd.date_range(DEMO_START, periods=spec.days, freq="D")
-    weekday = _WEEKDAY[dates.dayofweek]
+    weekday = _WEEKDAY[dates.day_of_week]
     labels = dates.strftime("%Y-%m-%d").to_numpy()
     shares = np.array([c[4] for c in _CATEGORIES])
     cat_idx = rng.choice(len(_CATEGORIES), size=spec.parts, p=shares / shares.sum())
