@@ -11,6 +11,8 @@ import os
 import sys
 from pathlib import Path
 
+import dataclasses
+
 import click
 import numpy as np
 import pandas as pd
@@ -89,15 +91,33 @@ def load_input(kwargs: dict, console: Console):
         unit_price=kwargs.pop("price_column"),
         attributes=tuple(kwargs.pop("attribute_columns")),
     )
+    path = kwargs.pop("input_path")
+    source = {
+        "input": str(Path(path).resolve()),
+        "layout": kwargs.pop("layout"),
+        "columns": dataclasses.asdict(columns),
+        "frequency": kwargs.pop("frequency"),
+        "net_returns": kwargs.pop("net_returns"),
+    }
     panel, summary = read_demand(
-        kwargs.pop("input_path"),
-        layout=kwargs.pop("layout"),
+        path,
+        layout=source["layout"],
         columns=columns,
-        frequency=kwargs.pop("frequency"),
-        net_returns=kwargs.pop("net_returns"),
+        frequency=source["frequency"],
+        net_returns=source["net_returns"],
     )
     console.say(summary.text())
-    return panel, summary, columns
+    return panel, summary, source
+
+
+def write_manifest(stage: Path, command: str, source: dict, **settings) -> None:
+    """``run.json``: what was read and how, so the report can find the history again."""
+    import json
+
+    from .io import write_text
+
+    manifest = {"command": command, "version": __version__, **source, **settings}
+    write_text(json.dumps(manifest, indent=2, default=str) + "\n", stage / "run.json")
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -146,8 +166,13 @@ def classify_options(func):
                      help="Fixed cutoffs, or the exact SBA-versus-Croston boundary."),
         click.option("--min-demands", default=2, show_default=True, type=int,
                      help="Fewer demands than this: too little history."),
-        click.option("--quiet-factor", default=None, type=float,
-                     help="No demand in the last (factor x ADI) periods: gone quiet."),
+        click.option("--min-periods", default=8, show_default=True, type=int,
+                     help="A history (from the first demand) shorter than this: too little history."),
+        click.option("--quiet-factor", default=4.0, show_default=True, type=float,
+                     help="No demand in the last (factor x mean interval between demands) periods: "
+                          "gone quiet. 0 turns the check off."),
+        click.option("--quiet-min", default=8, show_default=True, type=int,
+                     help="Fewest silent periods that can make an item gone quiet."),
     ]
     for option in reversed(options):
         func = option(func)
@@ -160,10 +185,11 @@ def pop_classify_options(kwargs: dict) -> dict:
         "cv2_cutoff": kwargs.pop("cv2_cutoff"),
         "rule": kwargs.pop("class_rule"),
         "min_demands": kwargs.pop("min_demands"),
+        "min_periods": kwargs.pop("min_periods"),
+        "quiet_min": kwargs.pop("quiet_min"),
     }
     quiet = kwargs.pop("quiet_factor")
-    if quiet is not None:
-        opts["quiet_factor"] = quiet
+    opts["quiet_factor"] = None if quiet == 0 else quiet
     return opts
 
 
@@ -261,11 +287,14 @@ def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     copts = pop_classify_options(kwargs)
     horizon = pop_horizon(kwargs)
     fopts = pop_forecast_options(kwargs)
-    panel, _, _ = load_input(kwargs, console)
+    panel, _, source = load_input(kwargs, console)
     result = routed_forecast(panel, horizon, fopts, copts, console)
     with staged_output(out_dir) as stage:
         write_table(result.table(), stage / f"forecasts.{fmt}")
         write_table(result.audit, stage / f"audit.{fmt}")
+        write_table(result.classes, stage / f"patterns.{fmt}")
+        write_manifest(stage, "forecast", source, horizon=horizon, classify_options=copts,
+                       forecast_options=fopts)
         if result.selection is not None:
             write_table(result.selection, stage / f"selection.{fmt}")
     click.echo(_format_summary(_routing_summary(result.audit)))
@@ -428,7 +457,7 @@ def stock_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     fopts = pop_forecast_options(kwargs)
     sopts = pop_stock_options(kwargs)
     sopts["seed"] = fopts["seed"]
-    panel, _, _ = load_input(kwargs, console)
+    panel, _, source = load_input(kwargs, console)
     # The forecast must cover the whole protection interval (lead time + review period).
     horizon = int(np.max(lead_times(panel, sopts))) + sopts["review_period"]
     result = routed_forecast(panel, horizon, fopts, copts, console)
@@ -437,8 +466,31 @@ def stock_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
         write_table(table, stage / f"stock.{fmt}")
         write_table(result.table(), stage / f"forecasts.{fmt}")
         write_table(result.audit, stage / f"audit.{fmt}")
+        write_table(result.classes, stage / f"patterns.{fmt}")
+        write_manifest(stage, "stock", source, horizon=horizon, classify_options=copts,
+                       forecast_options=fopts, stock_options=sopts)
     click.echo(totals_text(table))
     console.say(f"wrote {out_dir}/stock.{fmt}")
+
+
+# ------------------------------------------------------------------ report
+
+
+@cli.command("report")
+@click.argument("run_dir", metavar="DIR", type=click.Path(path_type=Path))
+@click.option("--out", "out_file", default=None, type=click.Path(dir_okay=False, path_type=Path),
+              help="HTML file to write (default DIR/report.html).")
+@click.option("--title", default="Demand, forecast and stock report", show_default=True)
+@click.option("--item-pages", default=25, show_default=True, type=click.IntRange(0, 500),
+              help="Most item pages (top items by value, then flagged items).")
+@click.option("--quiet", is_flag=True, default=False)
+def report_cmd(run_dir: Path, out_file: Path | None, title: str, item_pages: int, quiet: bool) -> None:
+    """One self-contained HTML report from a run folder (forecast, backtest, stock outputs)."""
+    from .report import build_report
+
+    console = Console(quiet)
+    path = build_report(run_dir, out=out_file, title=title, max_item_pages=item_pages)
+    console.say(f"wrote {path}")
 
 
 # ------------------------------------------------------------------ entry point

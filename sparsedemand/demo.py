@@ -235,24 +235,48 @@ def run_demo(
     return written
 
 
-def run_job(panel, out, *, horizon: int, seed: int, say=print) -> dict:
+def run_job(panel, out, *, horizon: int, seed: int, say=print, lead_time_column: str = "lead_time",
+            service_level: float = 0.95, review_period: int = 1) -> dict:
     """Classify, forecast, backtest, stock and report on one panel (the demo's chain)."""
     from pathlib import Path
 
-    from .classify import classify, pattern_summary
+    from .classify import pattern_summary
     from .io import staged_output, write_table
+    from .report import build_report
     from .route import forecast
+    from .stock import stock_targets, totals_text
 
     out = Path(out)
-    written = {}
-    classes = classify(panel)
-    say("patterns:\n" + pattern_summary(classes, panel).to_string(float_format=lambda v: f"{v:,.3f}"))
     result = forecast(panel, horizon, seed=seed)
+    say("patterns:\n" + pattern_summary(result.classes, panel).to_string(float_format=lambda v: f"{v:,.3f}"))
+    lead = panel.attribute(lead_time_column, default=1).to_numpy(dtype=np.int64)
+    price = panel.attribute("unit_price")
+    stock = stock_targets(
+        result.item_forecasts(),
+        lead_time=lead,
+        review_period=review_period,
+        service_level=service_level,
+        unit_price=None if price.isna().all() else price.to_numpy(dtype=float),
+        history=panel,
+        items=panel.items,
+        seed=seed,
+    )
+    tables = {"patterns": result.classes, "forecasts": result.table(), "audit": result.audit,
+              "stock": stock}
+    tables.update(_backtest_tables(panel, horizon=horizon, seed=seed, say=say))
     with staged_output(out) as stage:
-        write_table(classes, stage / "patterns.csv")
-        write_table(result.table(), stage / "forecasts.csv")
-        write_table(result.audit, stage / "audit.csv")
-    for name in ("patterns", "forecasts", "audit"):
-        written[name] = out / f"{name}.csv"
-    say(f"wrote {', '.join(str(p) for p in written.values())}")
+        for name, frame in tables.items():
+            write_table(frame, stage / f"{name}.csv")
+    written = {name: out / f"{name}.csv" for name in tables}
+    say(totals_text(stock))
+    written["report"] = build_report(out, out=out / "report.html", history=panel)
+    say(f"wrote {len(written)} files to {out}; open {written['report']} in a browser")
     return written
+
+
+def _backtest_tables(panel, *, horizon: int, seed: int, say) -> dict:
+    from .evaluate import backtest
+
+    result = backtest(panel, holdout=horizon, origins=3, seed=seed)
+    say(result.summary_text())
+    return {"scores": result.scores, "item_scores": result.item_scores}

@@ -72,6 +72,7 @@ from matplotlib.ticker import FuncFormatter, MaxNLocator
 from .classify import PATTERNS, STATUSES, croston_sba_boundary
 from .errors import InputError
 from .io import Columns, load_frame, period_labels, read_demand, write_text
+from .stock import STOCK_CAUTION
 from .panel import DemandPanel, as_panel, first_demand_offsets
 
 __all__ = [
@@ -97,10 +98,6 @@ RUN_TABLES: dict[str, tuple[tuple[str, ...], str]] = {
 ROUTER = "router"
 BASELINES: tuple[str, ...] = (
     "zeros", "mean_all", "mean_since_first", "mean_recent", "repeat_last", "seasonal_mean",
-)
-STOCK_CAUTION = (
-    "These stock targets are decision support, not orders. For safety-critical spares follow your "
-    "organisation's own policies, the applicable regulations and the judgement of qualified staff."
 )
 LEVEL_ALPHA = 0.1
 
@@ -1076,7 +1073,7 @@ def _router_section(overall: pd.DataFrame, colours) -> str:
 
 def _stock_section(ctx: _Context) -> str:
     out = ['<section id="stock"><h2>Stock targets</h2>',
-           f'<p class="caution"><b>Caution.</b> {escape(STOCK_CAUTION)}</p>']
+           f'<p class="caution">{escape(STOCK_CAUTION)}</p>']
     stock = ctx.run.get("stock")
     if stock is None or stock.empty:
         out.append(_missing("stock") + "</section>")
