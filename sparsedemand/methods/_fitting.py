@@ -12,13 +12,14 @@ import numpy as np
 from numba import njit
 
 from .croston import bias_factor, croston_item
-from .events import Events, run_in_threads
+from ._input import MethodFit, compound_params, constant_mean
+from .events import Events, run_in_threads, size_moments
 from .optimize import MSE, STATE_SIZE, WORK_SIZE, plan_ask, plan_best, plan_start, plan_tell
 from .smoothing import ses_item
 from .tsb import tsb_item
 
 __all__ = ["CROSTON", "SBA", "SBJ", "TSB", "SES", "SMOOTH_ROWS", "smooth_item",
-           "smooth_fit_item", "fit_smoothing"]
+           "smooth_fit_item", "fit_smoothing", "fit_compound"]
 
 CROSTON, SBA, SBJ, TSB, SES = 0, 1, 2, 3, 4
 # rows of the array fit_smoothing returns
@@ -96,3 +97,23 @@ def fit_smoothing(events: Events, method: int, alpha: float, beta: float, tie: b
         method, float(alpha), float(beta), bool(tie), int(cost_code), float(lo), float(hi), out,
     )
     return out
+
+
+def fit_compound(name: str, events: Events, horizon: int, method: int, alpha: float, beta: float,
+                 tie: bool, cost_code: int, lo: float, hi: float) -> MethodFit:
+    """Fit a Croston-family method or TSB and express it as a compound distribution.
+
+    ``p`` is the (bias-corrected) demand probability and ``size_mean`` the
+    smoothed size, so ``p * size_mean`` is the forecast.
+    """
+    out = fit_smoothing(events, method, alpha, beta, tie, cost_code, lo, hi)
+    r = SMOOTH_ROWS
+    _, size_var = size_moments(events)
+    return MethodFit(
+        name=name,
+        mean=constant_mean(out[r["mean"]], horizon),
+        params={"alpha": out[r["alpha"]], "beta": out[r["beta"]]},
+        cost=out[r["cost"]],
+        distribution="compound",
+        dist_params=compound_params(out[r["p"]], out[r["z"]], size_var),
+    )

@@ -23,7 +23,6 @@ demands before ``t``; costs are taken over ``t = 1 .. n-1``.
 
 from __future__ import annotations
 
-import numpy as np
 from numba import njit
 
 from ..errors import InputError
@@ -33,11 +32,8 @@ from ._input import (
     check_bounds,
     check_constant,
     check_cost,
-    compound_params,
-    constant_mean,
     run_public,
 )
-from .events import size_moments
 from .optimize import finish_cost, point_error, run_constant
 
 __all__ = ["croston", "sba", "sbj", "croston_item", "bias_factor", "SAME"]
@@ -89,7 +85,7 @@ def fit_croston_family(
     bounds: tuple[float, float] = (0.01, 0.5),
 ) -> MethodFit:
     """Fit Croston, SBA or SBJ for every item (see the module docstring)."""
-    from ._fitting import SMOOTH_ROWS, fit_smoothing  # the shared driver imports this module
+    from ._fitting import fit_compound  # the shared driver imports this module
 
     a = check_constant("alpha", alpha)
     tie = isinstance(beta, str) and beta == SAME
@@ -98,18 +94,7 @@ def fit_croston_family(
     b = a if tie else check_constant("beta", beta)
     code = check_cost(cost)
     lo, hi = check_bounds(bounds)
-    ev = data.events
-    out = fit_smoothing(ev, _FACTOR[variant], a, b, tie, code, lo, hi)
-    r = SMOOTH_ROWS
-    _, size_var = size_moments(ev)
-    return MethodFit(
-        name=variant,
-        mean=constant_mean(out[r["mean"]], horizon),
-        params={"alpha": out[r["alpha"]], "beta": out[r["beta"]]},
-        cost=out[r["cost"]],
-        distribution="compound",
-        dist_params=compound_params(out[r["p"]], out[r["z"]], size_var),
-    )
+    return fit_compound(variant, data.events, horizon, _FACTOR[variant], a, b, tie, code, lo, hi)
 
 
 def croston(

@@ -27,11 +27,8 @@ from ._input import (
     check_bounds,
     check_constant,
     check_cost,
-    compound_params,
-    constant_mean,
     run_public,
 )
-from .events import size_moments
 from .optimize import fill_powers, finish_cost, geometric_sums, point_error, run_geometric
 
 __all__ = ["tsb", "tsb_item"]
@@ -78,24 +75,13 @@ def fit_tsb(
     bounds: tuple[float, float] = (0.01, 0.5),
 ) -> MethodFit:
     """Fit TSB for every item (see the module docstring)."""
-    from ._fitting import SMOOTH_ROWS, TSB, fit_smoothing  # the shared driver imports this module
+    from ._fitting import TSB, fit_compound  # the shared driver imports this module
 
     a = check_constant("alpha", alpha)
     b = check_constant("beta", beta)
     code = check_cost(cost)
     lo, hi = check_bounds(bounds)
-    ev = data.events
-    out = fit_smoothing(ev, TSB, a, b, False, code, lo, hi)
-    r = SMOOTH_ROWS
-    _, size_var = size_moments(ev)
-    return MethodFit(
-        name="tsb",
-        mean=constant_mean(out[r["mean"]], horizon),
-        params={"alpha": out[r["alpha"]], "beta": out[r["beta"]]},
-        cost=out[r["cost"]],
-        distribution="compound",
-        dist_params=compound_params(out[r["p"]], out[r["z"]], size_var),
-    )
+    return fit_compound("tsb", data.events, horizon, TSB, a, b, False, code, lo, hi)
 
 
 def tsb(
