@@ -77,7 +77,7 @@ def test_sections_and_the_stock_caution(full_run):
         assert f'href="#{key}"' in html
     stock = section(html, "stock")
     assert escape(STOCK_CAUTION) in stock
-    assert "decision support" in STOCK_CAUTION and "safety-critical" in STOCK_CAUTION
+    assert "decision support" in STOCK_CAUTION and "safety-critical" in STOCK_CAUTION.lower()
     assert "qualified staff" in STOCK_CAUTION
 
 
