@@ -327,6 +327,78 @@ def _routing_summary(audit):
     return pd.concat([table, total], ignore_index=True).set_index(["pattern", "method"])
 
 
+# ------------------------------------------------------------------ backtest
+
+
+@cli.command("backtest")
+@input_options
+@classify_options
+@forecast_options
+@click.option("--holdout", required=True, type=int, help="Periods scored after each origin.")
+@click.option("--origins", default=1, show_default=True, type=int,
+              help="Forecast origins (rolling origin, expanding window).")
+@click.option("--step", default=None, type=int, help="Periods between origins (default: --holdout).")
+@click.option("--methods", "method_list", default=None,
+              help="Methods to compare, comma separated (default: every method).")
+@click.option("--baseline", default="mean_since_first", show_default=True,
+              help="Method the relative MAE divides by.")
+@click.option("--lead-time", "sim_lead_time", default=1, show_default=True, type=int,
+              help="Lead time of the simulated order-up-to policy.")
+@click.option("--review-period", "sim_review", default=1, show_default=True, type=int,
+              help="Review period of the simulated policy.")
+@click.option("--service-level", "sim_service", default=0.95, show_default=True, type=float,
+              help="Quantile of lead-time-plus-review demand the simulated policy orders up to.")
+@click.option("--unmet", type=click.Choice(["lost", "backorder"]), default="lost", show_default=True,
+              help="What happens to demand the simulated stock cannot serve.")
+@click.option("--weights", type=click.Choice(["volume", "value"]), default="volume", show_default=True,
+              help="Weighting of the weighted scores (value = unit price x units).")
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for scores.csv and item_scores.csv.")
+@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
+def backtest_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
+    """Score every method, the router and the naive baselines on your own history."""
+    from .evaluate import backtest
+    from .io import staged_output, write_table
+
+    console = Console(kwargs.pop("quiet"))
+    copts = pop_classify_options(kwargs)
+    fopts = pop_forecast_options(kwargs)
+    methods = kwargs.pop("method_list")
+    bopts = {
+        "holdout": kwargs.pop("holdout"),
+        "origins": kwargs.pop("origins"),
+        "step": kwargs.pop("step"),
+        "methods": None if methods is None else tuple(m.strip() for m in methods.split(",") if m.strip()),
+        "baseline": kwargs.pop("baseline"),
+        "lead_time": kwargs.pop("sim_lead_time"),
+        "review_period": kwargs.pop("sim_review"),
+        "service_level": kwargs.pop("sim_service"),
+        "unmet": kwargs.pop("unmet"),
+        "weights": kwargs.pop("weights"),
+    }
+    if fopts.pop("selection") != "policy":
+        raise InputError("--selection holdout is for forecast; the backtest scores the policy's router")
+    panel, _, source = load_input(kwargs, console)
+    from .route import load_overrides, load_policy
+
+    policy, overrides = fopts.pop("policy"), fopts.pop("overrides")
+    result = backtest(
+        panel,
+        policy=load_policy(policy) if policy is not None else None,
+        overrides=load_overrides(overrides) if overrides is not None else None,
+        classify_options=copts,
+        progress=console.progress,
+        **fopts,
+        **bopts,
+    )
+    with staged_output(out_dir) as stage:
+        write_table(result.scores, stage / f"scores.{fmt}")
+        write_table(result.item_scores, stage / f"item_scores.{fmt}")
+        write_manifest(stage, "backtest", source, classify_options=copts, backtest_options=bopts)
+    click.echo(result.summary_text())
+    console.say(f"wrote {out_dir}/scores.{fmt} and {out_dir}/item_scores.{fmt}")
+
+
 # ------------------------------------------------------------------ stock
 
 
