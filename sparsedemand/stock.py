@@ -536,6 +536,8 @@ def stock_targets(
                if np.ndim(v) == 1 and len(v) == n}
         sub_mean = np.ascontiguousarray(mean[rows])
         sub_labels = [labels[i] for i in rows]
+        if k == "compound" and "size_hist_mean" not in sub and hist is not None:
+            sub["size_hist_mean"] = _history_size_mean(*hist, rows)
         if lots is not None:
             q = lots[rows]
         elif k == "empirical":  # the bootstrap's own demand rate, from the history
@@ -598,6 +600,18 @@ def _history_rate(values, start, available, rows) -> np.ndarray:
         count = use.sum(axis=1)
         total = np.where(use, values[r], 0.0).sum(axis=1)
         out[lo : lo + 4096] = np.divide(total, count, out=np.zeros(len(r)), where=count > 0)
+    return out
+
+
+def _history_size_mean(values, start, available, rows) -> np.ndarray:
+    """Mean non-zero demand size over the available history of ``rows`` (NaN if never sold)."""
+    out = np.full(len(rows), np.nan)
+    for lo in range(0, len(rows), 4096):  # bounded temporaries on long histories
+        r = rows[lo : lo + 4096]
+        use = available[r] & (values[r] > 0)
+        count = use.sum(axis=1)
+        total = np.where(use, values[r], 0.0).sum(axis=1)
+        out[lo : lo + 4096] = np.divide(total, count, out=np.full(len(r), np.nan), where=count > 0)
     return out
 
 

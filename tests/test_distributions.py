@@ -299,3 +299,16 @@ def test_bootstrap_history_rows_read_a_subset_in_place():
                              history_rows=[4, 1], seed=seeds)
     copied = dist.demand_pmf("empirical", None, [0.0, 0.0], periods=3, values=values[[4, 1]], seed=seeds)
     np.testing.assert_array_equal(by_row, copied)
+
+
+def test_size_variance_follows_the_forecast_size_mean_at_the_history_cv():
+    # a size variance measured on sizes averaging 8 is carried to a forecast size mean of 4 at the
+    # same coefficient of variation: variance / 4 (constant CV scaling, common practice)
+    base = _compound([0.2], [4.0], [12.0])
+    scaled = dict(base, size_hist_mean=np.array([8.0]))
+    np.testing.assert_allclose(
+        dist.demand_pmf("compound", scaled, [0.8], periods=3),
+        dist.demand_pmf("compound", _compound([0.2], [4.0], [3.0]), [0.8], periods=3))
+    same = dict(base, size_hist_mean=np.array([4.0]))
+    np.testing.assert_allclose(dist.demand_pmf("compound", same, [0.8], periods=3),
+                               dist.demand_pmf("compound", base, [0.8], periods=3))

@@ -327,3 +327,15 @@ def test_bootstrap_history_from_a_panel_skips_stock_out_zeros():
     assert table["item"].tolist() == ["valve", "seal"]
     assert table.loc[0, "reorder_point"] == 8 and table.loc[0, "order_up_to"] == 12
     assert table.loc[0, "lot_size"] == pytest.approx(4.0)  # the in-stock demand rate per period
+
+
+def test_history_keeps_size_spread_in_proportion_to_a_smoothed_size():
+    # sizes 1, 1, 4, 12, 39 (mean 11.4, variance 206.64) but a smoothed size of 1.5: with the
+    # history the variance is carried to 1.5 at the history's CV, without it the raw variance
+    # implies orders of hundreds of units
+    values = np.zeros((1, 60))
+    values[0, [3, 15, 30, 45, 58]] = [39, 12, 4, 1, 1]
+    fit = _fit("sba", "compound", [0.15], p=[0.1], size_mean=[1.5], size_var=[206.64])
+    with_history = stock_targets(fit, lead_time=5, review_period=7, fill_rate=0.97, history=values)
+    without = stock_targets(fit, lead_time=5, review_period=7, fill_rate=0.97)
+    assert with_history.loc[0, "order_up_to"] < 40 < without.loc[0, "order_up_to"]

@@ -10,7 +10,10 @@ Kinds (per-period parameters, periods independent and identically distributed):
 
 ``"compound"``
     ``B * S`` with ``B ~ Bernoulli(p)`` and a demand size ``S >= 1`` matched to
-    ``size_mean`` and ``size_var`` by :func:`size_family`: ``S = 1 + NB`` (a
+    ``size_mean`` and ``size_var`` (optionally ``size_hist_mean``, the mean
+    of the sizes the variance was measured on: the variance is then carried
+    to ``size_mean`` at the same coefficient of variation) by
+    :func:`size_family`: ``S = 1 + NB`` (a
     negative binomial) when the sizes are more variable than ``1 + Poisson``
     allows, otherwise ``S = c + Poisson`` with the largest whole shift ``c >= 1``
     that keeps the Poisson part's variance at or above ``size_var``
@@ -239,6 +242,9 @@ def _params(kind: str, dist_params: Mapping | None, n: int, mean0: np.ndarray, i
                   ">= 1 (whole units; rescale fractional quantities)")
             out["size_mean"] = np.maximum(out["size_mean"], 1.0)
             out["p"][zero] = 0.0
+            if dist_params.get("size_hist_mean") is not None:
+                out["size_var"] = _rescaled_size_var(out["size_mean"], out["size_var"],
+                                                     dist_params["size_hist_mean"], n)
         elif kind in ("zip", "zinb"):
             check("pi", lambda v: (v >= 0) & (v <= 1), "between 0 and 1")
             if kind == "zip":
@@ -256,6 +262,23 @@ def _params(kind: str, dist_params: Mapping | None, n: int, mean0: np.ndarray, i
 
 
 # --------------------------------------------------------------------------- size family
+def _rescaled_size_var(size_mean, size_var, hist_mean, n: int) -> np.ndarray:
+    """Size variance carried to the forecast size mean at the history's coefficient of variation.
+
+    A smoothed size mean can sit far from the mean of the history the
+    variance was measured on (say 1.5 against 11.4 after a run of small
+    orders); matching that mean with the raw variance would imply absurdly
+    heavy tails, so the variance is scaled by ``(size_mean / hist_mean)^2``.
+    """
+    hist = np.asarray(hist_mean, dtype=np.float64)
+    hist = np.full(n, float(hist)) if hist.ndim == 0 else hist
+    if hist.shape != (n,):
+        raise InputError(f"dist_params['size_hist_mean'] has shape {hist.shape}, expected ({n},)")
+    usable = np.isfinite(hist) & (hist > 0)
+    ratio = np.where(usable, size_mean / np.where(usable, hist, 1.0), 1.0)
+    return np.where(np.isnan(size_var), size_var, size_var * ratio * ratio)
+
+
 def size_family(size_mean, size_var) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Whole-unit demand size ``S = c + X`` matched to a mean and variance.
 
@@ -976,8 +999,11 @@ def distribution_labels(kind: str, dist_params: Mapping | None = None, n_items: 
         if n_items is None:
             n_items = len(next(iter(dist_params.values()))) if dist_params else 1
         return np.full(n_items, fixed[kind], dtype=object)
-    _, m, r = size_family(np.nan_to_num(np.asarray(dist_params["size_mean"], float), nan=1.0),
-                          np.nan_to_num(np.asarray(dist_params["size_var"], float), nan=0.0))
+    size_mean = np.nan_to_num(np.asarray(dist_params["size_mean"], float), nan=1.0)
+    size_var = np.nan_to_num(np.asarray(dist_params["size_var"], float), nan=0.0)
+    if dist_params.get("size_hist_mean") is not None:
+        size_var = _rescaled_size_var(size_mean, size_var, dist_params["size_hist_mean"], len(size_mean))
+    _, m, r = size_family(size_mean, size_var)
     return np.where(m <= 0, "compound Bernoulli, fixed size",
                     np.where(np.isinf(r), "compound Bernoulli-Poisson",
                              "compound Bernoulli-negative binomial")).astype(object)
