@@ -388,7 +388,7 @@ def _distribution_targets(kind, params, mean, L, R, Q, target_kind, target, *, h
         horizons = [L[chunk]] + [L[chunk] + np.minimum(j, R[chunk]) for j in range(1, rmax + 1)]
         sub = {k: v[chunk] for k, v in params.items()}
         hist = {}
-        if kind == "empirical":
+        if history is not None and kind in ("empirical", "compound"):  # compound: historical size mean
             hist = dict(values=history[0], start=history[1], available=history[2],
                         history_rows=history_rows[chunk])
         ragged = dist.demand_pmfs(kind, sub, mean[chunk], periods=horizons, seed=seeds[chunk],
@@ -536,8 +536,6 @@ def stock_targets(
                if np.ndim(v) == 1 and len(v) == n}
         sub_mean = np.ascontiguousarray(mean[rows])
         sub_labels = [labels[i] for i in rows]
-        if k == "compound" and "size_hist_mean" not in sub and hist is not None:
-            sub["size_hist_mean"] = _history_size_mean(*hist, rows)
         if lots is not None:
             q = lots[rows]
         elif k == "empirical":  # the bootstrap's own demand rate, from the history
@@ -600,18 +598,6 @@ def _history_rate(values, start, available, rows) -> np.ndarray:
         count = use.sum(axis=1)
         total = np.where(use, values[r], 0.0).sum(axis=1)
         out[lo : lo + 4096] = np.divide(total, count, out=np.zeros(len(r)), where=count > 0)
-    return out
-
-
-def _history_size_mean(values, start, available, rows) -> np.ndarray:
-    """Mean non-zero demand size over the available history of ``rows`` (NaN if never sold)."""
-    out = np.full(len(rows), np.nan)
-    for lo in range(0, len(rows), 4096):  # bounded temporaries on long histories
-        r = rows[lo : lo + 4096]
-        use = available[r] & (values[r] > 0)
-        count = use.sum(axis=1)
-        total = np.where(use, values[r], 0.0).sum(axis=1)
-        out[lo : lo + 4096] = np.divide(total, count, out=np.full(len(r), np.nan), where=count > 0)
     return out
 
 

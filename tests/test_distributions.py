@@ -312,3 +312,11 @@ def test_size_variance_follows_the_forecast_size_mean_at_the_history_cv():
     same = dict(base, size_hist_mean=np.array([4.0]))
     np.testing.assert_allclose(dist.demand_pmf("compound", same, [0.8], periods=3),
                                dist.demand_pmf("compound", base, [0.8], periods=3))
+
+
+def test_compound_takes_the_historical_size_mean_from_a_history():
+    values = np.array([[0, 8, 0, 0, 8, 0, 8, 8]], dtype=float)  # sizes average 8
+    base = _compound([0.2], [4.0], [12.0])
+    from_history = dist.demand_pmf("compound", base, [0.8], periods=3, values=values)
+    given = dist.demand_pmf("compound", dict(base, size_hist_mean=np.array([8.0])), [0.8], periods=3)
+    np.testing.assert_allclose(from_history, given)

@@ -12,8 +12,8 @@ Kinds (per-period parameters, periods independent and identically distributed):
     ``B * S`` with ``B ~ Bernoulli(p)`` and a demand size ``S >= 1`` matched to
     ``size_mean`` and ``size_var`` (optionally ``size_hist_mean``, the mean
     of the sizes the variance was measured on: the variance is then carried
-    to ``size_mean`` at the same coefficient of variation) by
-    :func:`size_family`: ``S = 1 + NB`` (a
+    to ``size_mean`` at the same coefficient of variation; derived from the
+    history when ``values`` are passed) by :func:`size_family`: ``S = 1 + NB`` (a
     negative binomial) when the sizes are more variable than ``1 + Poisson``
     allows, otherwise ``S = c + Poisson`` with the largest whole shift ``c >= 1``
     that keeps the Poisson part's variance at or above ``size_var``
@@ -86,6 +86,7 @@ __all__ = [
     "total_moments",
     "period_totals",
     "checked_params",
+    "history_size_mean",
     "size_family",
     "distribution_labels",
     "item_seeds",
@@ -262,6 +263,24 @@ def _params(kind: str, dist_params: Mapping | None, n: int, mean0: np.ndarray, i
 
 
 # --------------------------------------------------------------------------- size family
+def history_size_mean(values, available, rows) -> np.ndarray:
+    """Mean non-zero demand per history row in ``rows`` over available periods (NaN if never sold).
+
+    Examples
+    --------
+    >>> history_size_mean(np.array([[0., 2., 4.], [0., 0., 0.]]), np.ones((2, 3), bool), np.array([0, 1])).tolist()
+    [3.0, nan]
+    """
+    out = np.full(len(rows), np.nan)
+    for lo in range(0, len(rows), 4096):  # bounded temporaries on long histories
+        r = rows[lo : lo + 4096]
+        use = available[r] & (values[r] > 0)
+        count = use.sum(axis=1)
+        total = np.where(use, values[r], 0.0).sum(axis=1)
+        out[lo : lo + 4096] = np.divide(total, count, out=np.full(len(r), np.nan), where=count > 0)
+    return out
+
+
 def _rescaled_size_var(size_mean, size_var, hist_mean, n: int) -> np.ndarray:
     """Size variance carried to the forecast size mean at the history's coefficient of variation.
 
@@ -891,6 +910,9 @@ def demand_pmfs(
     if isinstance(periods, (str, bytes)) or np.ndim(periods) == 0:
         raise InputError("periods must be a sequence of period counts; use demand_pmf for one")
     counts = [_per_item(p, n_items, name="periods", integer=True, minimum=0) for p in periods]
+    if kind == "compound" and values is not None and (dist_params or {}).get("size_hist_mean") is None:
+        vals, hrows, _, av = _history(values, start, available, history_rows, n_items)
+        dist_params = dict(dist_params or {}, size_hist_mean=history_size_mean(vals, av, hrows))
     prm = _params(kind, dist_params, n_items, mean[:, 0], items)
     if kind == "empirical":
         if int(n_samples) != n_samples or n_samples < 1:
@@ -944,7 +966,8 @@ def demand_pmf(
         Number of periods summed, >= 0 (0 gives all mass on 0).
     values, start, available : ndarray, optional
         Demand history (rows x periods), first-demand offsets and availability
-        mask per row, needed for ``"empirical"`` only.
+        mask per row: needed for ``"empirical"``; for ``"compound"`` it gives
+        the historical size mean when ``dist_params`` has no ``size_hist_mean``.
     history_rows : ndarray of int (n_items,), optional
         Row of the history holding each item (default: row ``i`` is item ``i``).
     seed : int or ndarray of int (n_items,)
