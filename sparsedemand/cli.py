@@ -281,7 +281,6 @@ def pop_forecast_options(kwargs: dict) -> dict:
 def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     """Route every item to a suitable method and forecast, with an audit trail."""
     from .io import staged_output, write_table
-    from .route import forecast
 
     console = Console(kwargs.pop("quiet"))
     copts = pop_classify_options(kwargs)
