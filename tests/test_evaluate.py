@@ -1,0 +1,337 @@
+"""Backtest: origin layout, no look-ahead, hand-worked scores, stock-outs, aggregation, the router."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from sparsedemand.errors import InputError
+from sparsedemand.evaluate import ROUTER, backtest, metric_names, origin_cuts
+from sparsedemand.panel import DemandPanel
+from sparsedemand.route import forecast
+
+
+def make_panel(values, *, available=None, attributes=None, items=None) -> DemandPanel:
+    values = np.asarray(values, dtype=float)
+    if values.ndim == 1:
+        values = values[None, :]
+    if available is not None:
+        available = np.asarray(available, dtype=bool).reshape(values.shape)
+    items = pd.Index(items if items is not None else [f"P{i:03d}" for i in range(values.shape[0])])
+    if attributes is not None:
+        attributes = pd.DataFrame(attributes, index=items)
+    return DemandPanel(values, items=items, periods=pd.RangeIndex(values.shape[1]),
+                       available=available,
+                       attributes=attributes)
+
+
+def item_score(res, method: str, metric: str, item: str = "P000") -> float:
+    t = res.item_scores
+    return float(t.loc[(t["method"] == method) & (t["item"] == item), metric].iloc[0])
+
+
+def random_panel(n_items: int, n_periods: int, *, seed: int) -> DemandPanel:
+    rng = np.random.default_rng(seed)
+    p = rng.uniform(0.05, 0.9, size=(n_items, 1))
+    values = (rng.random((n_items, n_periods)) < p) * (1.0 + rng.poisson(2.0, size=(n_items, n_periods)))
+    available = rng.random((n_items, n_periods)) > 0.03
+    attributes = {"location": rng.choice(["North", "Hill"], n_items),
+                  "category": rng.choice(["filters", "seals", "belts"], n_items),
+                  "unit_price": rng.uniform(1.0, 50.0, n_items)}
+    return make_panel(values, available=available, attributes=attributes)
+
+
+# --------------------------------------------------------------------------- layout
+def test_rolling_origin_layout_by_hand():
+    # Rolling origin, expanding window, each origin scoring the next H periods
+    # (common practice; Tashman 2000, IJF 16:437-450).
+    assert origin_cuts(100, holdout=10, origins=3, step=5).tolist() == [80, 85, 90]
+    assert origin_cuts(100, holdout=10, origins=3).tolist() == [70, 80, 90]  # step defaults to H
+    assert origin_cuts(100, holdout=10).tolist() == [90]
+
+    # Demand y_t = t + 1. repeat_last with a window of 1 forecasts the last training value,
+    # which is cut at an origin training on periods 0 .. cut - 1; it then scores
+    # periods cut .. cut + 3 holding cut + 1 .. cut + 4, so its MAE is (1 + 2 + 3 + 4) / 4.
+    y = np.arange(1, 41, dtype=float)
+    res = backtest(make_panel(y), holdout=4, origins=3, step=3, methods=["repeat_last"],
+                   method_options={"repeat_last": {"window": 1}}, include_router=False,
+                   keep_forecasts=True)
+    layout = res.origins
+    assert layout["train_periods"].tolist() == [30, 33, 36]
+    assert layout["last_train"].tolist() == [29, 32, 35]
+    assert layout["first_scored"].tolist() == [30, 33, 36]
+    assert layout["last_scored"].tolist() == [33, 36, 39]
+    for k, cut in enumerate([30, 33, 36], start=1):
+        assert res.forecasts[(k, "repeat_last")].mean.tolist() == [[float(cut)] * 4]
+    assert item_score(res, "repeat_last", "mae") == pytest.approx(2.5)
+    assert res.value("repeat_last", "mae") == pytest.approx(2.5)
+    assert int(res.item_scores["origins"].iloc[0]) == 3
+
+
+def test_too_many_origins_is_a_clear_error():
+    with pytest.raises(InputError, match="needs more than 31 periods"):
+        backtest(make_panel(np.ones(30)), holdout=10, origins=3)
+    with pytest.raises(InputError, match="origins must be a whole number >= 1"):
+        backtest(make_panel(np.ones(30)), holdout=5, origins=0)
+
+
+# --------------------------------------------------------------------------- no look-ahead
+def test_nothing_after_an_origin_reaches_its_forecasts():
+    panel = random_panel(40, 160, seed=3)
+    cut = 140  # origins at 140 and 150
+    rng = np.random.default_rng(99)
+    values = panel.values.copy()
+    values[:, cut:] = rng.poisson(6.0, size=values[:, cut:].shape)
+    available = panel.mask().copy()
+    available[:, cut:] = rng.random(available[:, cut:].shape) > 0.5
+    changed = DemandPanel(values, items=panel.items, periods=panel.periods, available=available,
+                          attributes=panel.attributes)
+    options = dict(holdout=10, origins=2, keep_forecasts=True)
+    a = backtest(panel, **options)
+    b = backtest(changed, **options)
+    assert a.origins["train_periods"].tolist() == [cut, cut + 10]
+    assert a.patterns[1].equals(b.patterns[1])
+    differs = False
+    for (origin, method), fa in a.forecasts.items():
+        fb = b.forecasts[(origin, method)]
+        same = (np.array_equal(fa.mean, fb.mean) and np.array_equal(fa.quantiles, fb.quantiles)
+                and np.array_equal(fa.order_up_to, fb.order_up_to))
+        if origin == 1:
+            assert same, method
+        else:
+            differs |= not same
+    assert differs  # the second origin trains on the changed periods, so the check can fail
+    assert {m for _, m in a.forecasts} >= {ROUTER, "sba", "tsb", "zip", "mean_since_first"}
+
+
+# --------------------------------------------------------------------------- hand-worked scores
+# In-sample 2, 0, 1, 3, 0 (first demand at the start): one-step naive differences 2, 1, 2, 3,
+# so the MASE scale is 2 (Hyndman & Koehler 2006, IJF 22:679-688) and the RMSSE scale,
+# the mean squared difference, is 18 / 4 = 4.5 (Makridakis, Spiliotis & Assimakopoulos 2022,
+# IJF 38:1346-1364). The mean since first demand forecasts 6 / 5 = 1.2 for every period.
+INSAMPLE = [2.0, 0.0, 1.0, 3.0, 0.0]
+
+
+def test_mase_and_rmsse_match_the_published_definitions():
+    res = backtest(make_panel(INSAMPLE + [1.0, 0.0, 2.0]), holdout=3, methods=["mean_since_first"],
+                   include_router=False)
+    # errors 1 - 1.2, 0 - 1.2, 2 - 1.2: MAE 2.2 / 3, MSE 2.12 / 3, mean error (f - y) 0.6 / 3
+    assert item_score(res, "mean_since_first", "mae") == pytest.approx(2.2 / 3)
+    assert item_score(res, "mean_since_first", "mase") == pytest.approx(2.2 / 3 / 2)
+    assert item_score(res, "mean_since_first", "rmsse") == pytest.approx(math.sqrt(2.12 / 3 / 4.5))
+    assert item_score(res, "mean_since_first", "scaled_bias") == pytest.approx(0.2 / 2)
+    assert res.value("mean_since_first", "mase") == pytest.approx(2.2 / 6)
+    assert item_score(res, "mean_since_first", "excluded_periods") == 0
+
+
+def test_stockouts_in_the_holdout_are_left_out_and_counted():
+    # the middle holdout period is out of stock: its recorded 0 is censored
+    available = [True] * 5 + [True, False, True]
+    res = backtest(make_panel(INSAMPLE + [1.0, 0.0, 2.0], available=available), holdout=3,
+                   methods=["mean_since_first", "croston"], include_router=False)
+    # errors 1 - 1.2 and 2 - 1.2 only: MAE 0.5, MSE 0.68 / 2
+    assert item_score(res, "mean_since_first", "mase") == pytest.approx(0.5 / 2)
+    assert item_score(res, "mean_since_first", "rmsse") == pytest.approx(math.sqrt(0.34 / 4.5))
+    assert item_score(res, "mean_since_first", "excluded_periods") == 1
+    assert res.value("croston", "excluded_periods") == 1
+    # scoring with the period flagged equals scoring with it deleted
+    dropped = backtest(make_panel(INSAMPLE + [1.0, 2.0]), holdout=2, methods=["mean_since_first", "croston"],
+                       include_router=False)
+    for method in ("mean_since_first", "croston"):
+        for metric in ("mase", "rmsse", "mae", "scaled_bias", "pis", "shortages", "spl_q90", "coverage_q50"):
+            assert item_score(res, method, metric) == pytest.approx(item_score(dropped, method, metric)), metric
+
+
+def test_order_up_to_simulation_on_constant_demand_by_hand():
+    # 2 units every period: Croston's forecast is 2 with a demand every period and fixed sizes,
+    # so demand over L + R = 3 periods is exactly 6 and S = 6. A periodic-review order-up-to
+    # policy whose S covers the demand over L + R never runs short (Silver, Pyke & Peterson
+    # 1998, Inventory Management and Production Planning and Scheduling; from memory). End
+    # stock by hand: 4, 2, then 0 once the orders placed each period arrive two periods later.
+    res = backtest(make_panel(np.full(50, 2.0)), holdout=10, methods=["croston"], include_router=False,
+                   lead_time=2, review_period=1, service_level=0.9, keep_forecasts=True)
+    assert res.forecasts[(1, "croston")].order_up_to.tolist() == [[6.0]]
+    assert item_score(res, "croston", "fill_rate") == 1.0
+    assert item_score(res, "croston", "cycle_service_level") == 1.0
+    assert item_score(res, "croston", "stockout_periods") == 0
+    assert item_score(res, "croston", "avg_on_hand") == pytest.approx(6.0 / 10)
+    # a zero forecast orders nothing: every period runs short
+    zeros = backtest(make_panel(np.full(50, 2.0)), holdout=10, methods=["zeros"], include_router=False)
+    assert item_score(zeros, "zeros", "fill_rate") == 0.0
+    assert item_score(zeros, "zeros", "stockout_periods") == 10
+
+
+# --------------------------------------------------------------------------- aggregation
+def small_mix(*, stockout: bool) -> DemandPanel:
+    """Two smooth items (demand every period) and two intermittent ones (fixed sizes, every 3rd/4th period)."""
+    rng = np.random.default_rng(5)
+    n = 60
+    smooth = 3.0 + rng.integers(0, 2, size=(2, n))
+    inter = np.zeros((2, n))
+    inter[0, 2::3] = 2.0
+    inter[1, 3::4] = 5.0
+    available = np.ones((4, n), dtype=bool)
+    if stockout:
+        available[1, -5:-3] = False
+        available[3, -2] = False
+    return make_panel(np.vstack([smooth, inter]), available=available,
+                      attributes={"location": ["N", "N", "S", "S"], "category": ["a", "b", "a", "b"],
+                                  "unit_price": [1.0, 2.0, 10.0, 4.0]})
+
+
+def test_pattern_means_and_weighted_means_by_hand():
+    panel = small_mix(stockout=True)
+    res = backtest(panel, holdout=10, methods=["sba", "zeros"], weights=("volume", "value"))
+    assert res.patterns[1].tolist() == ["smooth", "smooth", "intermittent", "intermittent"]
+    items = res.item_scores
+    for method in ("sba", "zeros", ROUTER, "mean_since_first"):
+        part = items[items["method"] == method].set_index("item")
+        for metric in ("mase", "rmsse", "scaled_bias", "spl_q80", "coverage_q95", "fill_rate"):
+            col = part[metric]
+            assert res.value(method, metric, pattern="smooth") == pytest.approx(col.iloc[:2].mean())
+            assert res.value(method, metric, pattern="intermittent") == pytest.approx(col.iloc[2:].mean())
+            assert res.value(method, metric) == pytest.approx(col.mean())
+        # excluded periods are a count: the total over items
+        assert res.value(method, "excluded_periods") == 3
+        # weights: units (or units x unit price) over the last 10 periods before the origin
+        # (the M5 weighting, Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364)
+        before = panel.values[:, 40:50] * panel.mask()[:, 40:50]
+        for kind, w in (("volume", before.sum(axis=1)),
+                        ("value", before.sum(axis=1) * np.array([1.0, 2.0, 10.0, 4.0]))):
+            for metric in ("mase", "rmsse"):
+                s = part[metric].to_numpy()
+                assert res.value(method, f"{metric}_{kind}_weighted") == pytest.approx((w * s).sum() / w.sum())
+                inter = slice(2, 4)
+                assert res.value(method, f"{metric}_{kind}_weighted", pattern="intermittent") == pytest.approx(
+                    (w[inter] * s[inter]).sum() / w[inter].sum())
+
+
+def test_pooled_over_origins_and_hierarchy_levels():
+    panel = small_mix(stockout=False)
+    res = backtest(panel, holdout=5, origins=3, methods=["ses"], include_router=False)
+    part = res.item_scores[res.item_scores["method"] == "ses"]
+    # the same items and patterns at every origin: the pooled mean is the mean of the item means
+    assert (res.patterns.nunique(axis=1) == 1).all()
+    assert res.value("ses", "rmsse") == pytest.approx(part["rmsse"].mean())
+    levels = res.scores[res.scores["metric"] == "weighted_rmsse"]
+    per_level = levels[levels["method"] == "ses"].set_index("level")["value"]
+    assert list(per_level.index) == ["item", "location", "category", "total", "all"]
+    assert per_level["all"] == pytest.approx(per_level.drop("all").mean())
+    # the item level of the weighted RMSSE is the volume-weighted mean of item RMSSE per origin; with
+    # one origin it equals the volume-weighted RMSSE of the item table
+    one = backtest(panel, holdout=5, methods=["ses"], include_router=False)
+    assert one.value("ses", "weighted_rmsse", level="item") == pytest.approx(one.value("ses", "rmsse_volume_weighted"))
+
+
+def test_relative_mae_geometric_mean_by_hand():
+    # AvgRelMAE: weighted geometric mean of MAE(method) / MAE(baseline), each item weighted by
+    # its scored periods (Davydenko & Fildes 2013, IJF 29:510-522)
+    res = backtest(small_mix(stockout=True), holdout=10, methods=["zeros", "sba"])
+    items = res.item_scores
+    base = items[items["method"] == "mean_since_first"]["mae"].to_numpy()
+    scored = 10 - items[items["method"] == "zeros"]["excluded_periods"].to_numpy()
+    for method in ("zeros", "sba"):
+        ratio = items[items["method"] == method]["mae"].to_numpy() / base
+        expected = math.exp((scored * np.log(ratio)).sum() / scored.sum())
+        assert res.value(method, "rel_mae_gmean") == pytest.approx(expected)
+        assert items[items["method"] == method]["rel_mae"].to_numpy() == pytest.approx(ratio)
+    # the baseline against itself is 1 (every ratio is 1)
+    rel = res.scores[(res.scores["method"] == "mean_since_first") & (res.scores["metric"] == "rel_mae_gmean")]
+    assert len(rel) == 3 and np.allclose(rel["value"], 1.0)
+
+
+# --------------------------------------------------------------------------- the router
+def shifting_panel(seed: int = 11):
+    """Known true means: steady items, items whose demand stops, items whose level jumps."""
+    rng = np.random.default_rng(seed)
+    n, T = 40, 360
+    occurs = rng.random((3 * n, T))
+    sizes = 1.0 + rng.poisson(2.0, size=(3 * n, T))  # mean size 3
+    p = np.empty((3 * n, T))
+    p[:n] = 0.3
+    p[n:2 * n] = np.where(np.arange(T) < 250, 0.3, 0.0)  # obsolete from period 250
+    p[2 * n:] = np.where(np.arange(T) < 200, 0.08, 0.5)  # level shift at period 200
+    return make_panel((occurs < p) * sizes), 3.0 * p
+
+
+def test_router_beats_zeros_and_repeat_last_against_the_true_mean():
+    # The routed method per pattern (SBA for intermittent demand, Syntetos & Boylan 2005,
+    # IJF 21:303-314; TSB once demand has gone quiet, Teunter, Syntetos & Babai 2011, EJOR
+    # 214:606-615) should track the generating mean better than naive rules.
+    panel, true_mean = shifting_panel()
+    res = backtest(panel, holdout=28, origins=2, methods=["zeros", "repeat_last"], keep_forecasts=True)
+    cuts = res.origins["train_periods"].tolist()
+    mse = {}
+    for method in (ROUTER, "zeros", "repeat_last"):
+        err = [res.forecasts[(k, method)].mean - true_mean[:, c: c + 28] for k, c in enumerate(cuts, start=1)]
+        mse[method] = float(np.mean(np.square(err)))
+    assert mse[ROUTER] < 0.5 * mse["zeros"]
+    assert mse[ROUTER] < 0.5 * mse["repeat_last"]
+    # the dead items were seen as gone quiet and their forecasts fell far below the old mean 0.9
+    assert (res.patterns.iloc[40:80] == "gone-quiet").all().all()
+    assert res.forecasts[(2, ROUTER)].mean[40:80].mean() < 0.1
+    assert res.value(ROUTER, "rmsse") < res.value("zeros", "rmsse")
+    assert res.value(ROUTER, "rmsse") < res.value("repeat_last", "rmsse")
+
+
+def test_router_matches_the_routed_forecast_at_each_origin():
+    panel = random_panel(60, 150, seed=8)
+    res = backtest(panel, holdout=14, origins=2, methods=["sba", "ses", "tsb"], keep_forecasts=True)
+    for k, cut in enumerate(res.origins["train_periods"], start=1):
+        routed = forecast(panel.head(int(cut)), 14)
+        assert np.allclose(res.forecasts[(k, ROUTER)].mean, routed.point.to_numpy(), rtol=1e-12, atol=1e-12)
+        assert res.patterns[k].tolist() == routed.classes["pattern"].tolist()
+
+
+def test_router_with_a_fixed_parameter_policy_is_fitted_on_its_own():
+    from sparsedemand.route import DEFAULT_POLICY, Rule
+
+    panel = random_panel(30, 120, seed=4)
+    policy = {**DEFAULT_POLICY, "intermittent": Rule("sba", {"alpha": 0.2}),
+              "lumpy": Rule("croston", {"alpha": 0.3})}
+    res = backtest(panel, holdout=10, methods=["zeros"], policy=policy, keep_forecasts=True)
+    routed = forecast(panel.head(110), 10, policy=policy)
+    assert np.allclose(res.forecasts[(1, ROUTER)].mean, routed.point.to_numpy(), rtol=1e-12, atol=1e-12)
+
+
+# --------------------------------------------------------------------------- outputs and options
+def test_summary_marks_the_best_and_ranks_the_router():
+    res = backtest(random_panel(30, 120, seed=2), holdout=10, methods=["sba", "zeros", "ses"])
+    table = res.summary()
+    assert list(table.columns) == ["mase", "rmsse", "scaled_bias", "spl", "coverage_q90", "fill_rate",
+                                   "avg_on_hand", "rel_mae_gmean", "weighted_rmsse"]
+    assert list(table.index) == ["mean_since_first", "sba", "zeros", "ses", ROUTER]
+    text = res.summary_text()
+    best = table["rmsse"].idxmin()
+    line = next(row for row in text.splitlines() if row.startswith(best + " "))
+    assert f"{table.loc[best, 'rmsse']:.3f}*" in line
+    rank = int((table["rmsse"] < table.loc[ROUTER, "rmsse"]).sum()) + 1
+    assert f"router ranks {rank} of 5 methods on RMSSE" in text
+    assert set(res.scores.columns) == {"method", "pattern", "level", "metric", "value", "count"}
+    assert list(res.item_scores.columns[:4]) == ["item", "method", "pattern", "origins"]
+    assert set(metric_names()) <= set(res.item_scores.columns)
+
+
+@pytest.mark.parametrize(
+    ("options", "message"),
+    [
+        (dict(holdout=0), "holdout must be a whole number >= 1"),
+        (dict(holdout=5, methods=["nope"]), "unknown method 'nope'"),
+        (dict(holdout=5, service_level=1.5), "service_level must be a number strictly between 0 and 1"),
+        (dict(holdout=5, levels=(0.5, 1.0)), "levels must lie strictly between 0 and 1"),
+        (dict(holdout=5, weights="price"), "weights must be 'volume' or 'value'"),
+        (dict(holdout=5, lead_time=-1), "lead_time must be a whole number >= 0"),
+        (dict(holdout=5, unmet="later"), "unmet must be lost or backorder"),
+    ],
+)
+def test_bad_options_give_one_line_errors(options, message):
+    with pytest.raises(InputError, match=message):
+        backtest(make_panel(np.ones((2, 40))), **options)
+
+
+def test_value_weights_need_unit_prices():
+    with pytest.raises(InputError, match="unit_price"):
+        backtest(make_panel(np.ones((2, 40))), holdout=5, weights="value")
