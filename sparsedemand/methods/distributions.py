@@ -86,7 +86,6 @@ __all__ = [
     "total_moments",
     "period_totals",
     "checked_params",
-    "history_size_mean",
     "size_family",
     "distribution_labels",
     "item_seeds",
@@ -263,24 +262,6 @@ def _params(kind: str, dist_params: Mapping | None, n: int, mean0: np.ndarray, i
 
 
 # --------------------------------------------------------------------------- size family
-def history_size_mean(values, available, rows) -> np.ndarray:
-    """Mean non-zero demand per history row in ``rows`` over available periods (NaN if never sold).
-
-    Examples
-    --------
-    >>> history_size_mean(np.array([[0., 2., 4.], [0., 0., 0.]]), np.ones((2, 3), bool), np.array([0, 1])).tolist()
-    [3.0, nan]
-    """
-    out = np.full(len(rows), np.nan)
-    for lo in range(0, len(rows), 4096):  # bounded temporaries on long histories
-        r = rows[lo : lo + 4096]
-        use = available[r] & (values[r] > 0)
-        count = use.sum(axis=1)
-        total = np.where(use, values[r], 0.0).sum(axis=1)
-        out[lo : lo + 4096] = np.divide(total, count, out=np.full(len(r), np.nan), where=count > 0)
-    return out
-
-
 def _rescaled_size_var(size_mean, size_var, hist_mean, n: int) -> np.ndarray:
     """Size variance carried to the forecast size mean at the history's coefficient of variation.
 
@@ -529,11 +510,12 @@ def _uniform(state):
 
 
 @njit(cache=True)
-def _bootstrap_kernel(values, rows, start, available, checkpoints, seeds, n_samples, jitter, out):
+def _bootstrap_kernel(values, rows, start, available, has_mask, checkpoints, seeds, n_samples, jitter, out):
     """Willemain-Smart-Schwarz bootstrap totals at each checkpoint, ``out[i, j, s]``.
 
-    Item ``i`` uses history row ``rows[i]`` of ``values``, ``available`` and
-    ``start`` (so a subset of a large panel needs no copy).
+    Item ``i`` uses history row ``rows[i]`` of ``values`` and ``available``
+    (read only when ``has_mask``) from period ``start[i]`` on, so a subset of
+    a large panel needs no copy.
 
     Occurrence: two-state Markov chain estimated from transitions between
     consecutive available periods from the item's first demand on (a state
@@ -558,8 +540,8 @@ def _bootstrap_kernel(values, rows, start, available, checkpoints, seeds, n_samp
         n11 = 0
         prev = -1
         last = 0
-        for t in range(start[h], n_periods):
-            if not available[h, t]:
+        for t in range(start[i], n_periods):
+            if has_mask and not available[h, t]:
                 prev = -1
                 continue
             v = values[h, t]
@@ -817,14 +799,14 @@ def _histogram_rows(totals, cap):
     return data, offsets
 
 
-def _bootstrap_rows(values, rows, start, available, checks: np.ndarray, seeds, n_samples: int,
+def _bootstrap_rows(values, rows, start, available, has_mask, checks: np.ndarray, seeds, n_samples: int,
                     jitter: bool, cap: int, block_items: int = 256) -> list[list]:
     n_items, n_checks = checks.shape
     out: list[list] = [[None] * n_items for _ in range(n_checks)]
     for lo in range(0, n_items, block_items):
         sl = slice(lo, min(lo + block_items, n_items))
         totals = np.empty((sl.stop - lo, n_checks, n_samples), dtype=np.int64)
-        _bootstrap_kernel(values, rows[sl], start, available, checks[sl], seeds[sl],
+        _bootstrap_kernel(values, rows[sl], start[sl], available, has_mask, checks[sl], seeds[sl],
                           n_samples, jitter, totals)
         for j in range(n_checks):
             data, offsets = _histogram_rows(np.ascontiguousarray(totals[:, j, :]), cap)
@@ -833,14 +815,42 @@ def _bootstrap_rows(values, rows, start, available, checks: np.ndarray, seeds, n
     return out
 
 
+@njit(cache=True)
+def _scan_history(values, available, has_mask, rows, size_mean, first):
+    """One pass over the history rows of the items: first bad cell, mean size, first demand.
+
+    Returns ``(row, period)`` of the first available value that is negative
+    or not finite, ``(-1, -1)`` when all are valid.
+    """
+    n_periods = values.shape[1]
+    for i in range(rows.shape[0]):
+        h = rows[i]
+        total = 0.0
+        count = 0
+        first[i] = n_periods
+        for t in range(n_periods):
+            if has_mask and not available[h, t]:
+                continue
+            v = values[h, t]
+            if not (v >= 0.0 and v < np.inf):
+                return h, t
+            if v > 0.0:
+                if count == 0:
+                    first[i] = t
+                total += v
+                count += 1
+        size_mean[i] = total / count if count > 0 else np.nan
+    return -1, -1
+
+
 def _history(values, start, available, history_rows, n_items: int):
-    """Checked history arrays (no copies of valid float64 input) and the item-to-row map."""
+    """Checked history (no copies of float64 input): values, item rows, item starts, mask, has_mask, mean sizes."""
     if values is None:
         raise InputError("the empirical (bootstrap) distribution needs the demand history: pass values=")
     values = np.ascontiguousarray(values, dtype=np.float64)
     if values.ndim != 2:
         raise InputError(f"values must be 2-D (items x periods), got shape {values.shape}")
-    n_rows = values.shape[0]
+    n_rows, n_periods = values.shape
     if history_rows is None:
         if n_rows != n_items:
             raise InputError(f"values has {n_rows} rows for {n_items} items")
@@ -849,24 +859,25 @@ def _history(values, start, available, history_rows, n_items: int):
         rows = np.asarray(history_rows, dtype=np.int64)
         if rows.shape != (n_items,) or ((rows < 0) | (rows >= n_rows)).any():
             raise InputError(f"history_rows must give one row of values (0 .. {n_rows - 1}) per item")
-    if available is None:
-        available = np.ones(values.shape, dtype=np.bool_)
-    available = np.ascontiguousarray(available, dtype=np.bool_)
-    if available.shape != values.shape:
-        raise InputError(f"available has shape {available.shape}, values has {values.shape}")
+    has_mask = available is not None
+    if has_mask:
+        available = np.ascontiguousarray(available, dtype=np.bool_)
+        if available.shape != values.shape:
+            raise InputError(f"available has shape {available.shape}, values has {values.shape}")
+    else:
+        available = np.ones((1, 1), dtype=np.bool_)
+    sizes = np.empty(n_items)
+    first = np.empty(n_items, dtype=np.int64)
     # values where the item was unavailable are never read
-    if not ((values >= 0) | ~available).all():
-        bad = ~(values >= 0) & available
-        i, t = np.argwhere(bad)[0]
-        raise InputError(f"values must be finite and >= 0, got {values[i, t]!r} for row {i}, period {t}")
-    if (np.isinf(values) & available).any():
-        i, t = np.argwhere(np.isinf(values) & available)[0]
-        raise InputError(f"values must be finite and >= 0, got {values[i, t]!r} for row {i}, period {t}")
+    h, t = _scan_history(values, available, has_mask, rows, sizes, first)
+    if h >= 0:
+        raise InputError(f"values must be finite and >= 0, got {values[h, t]!r} for row {h}, period {t}")
     if start is None:
-        positive = (values > 0) & available
-        start = np.where(positive.any(axis=1), positive.argmax(axis=1), values.shape[1])
-    start = _per_item(start, n_rows, name="start", integer=True, minimum=0)
-    return values, rows, np.minimum(start, values.shape[1]).astype(np.int64), available
+        item_start = first
+    else:
+        item_start = _per_item(start, n_rows, name="start", integer=True, minimum=0)[rows]
+    item_start = np.minimum(item_start, n_periods).astype(np.int64)
+    return values, rows, item_start, available, has_mask, sizes
 
 
 def demand_pmfs(
@@ -911,15 +922,15 @@ def demand_pmfs(
         raise InputError("periods must be a sequence of period counts; use demand_pmf for one")
     counts = [_per_item(p, n_items, name="periods", integer=True, minimum=0) for p in periods]
     if kind == "compound" and values is not None and (dist_params or {}).get("size_hist_mean") is None:
-        vals, hrows, _, av = _history(values, start, available, history_rows, n_items)
-        dist_params = dict(dist_params or {}, size_hist_mean=history_size_mean(vals, av, hrows))
+        dist_params = dict(dist_params or {}, size_hist_mean=_history(values, start, available, history_rows,
+                                                                      n_items)[-1])
     prm = _params(kind, dist_params, n_items, mean[:, 0], items)
     if kind == "empirical":
         if int(n_samples) != n_samples or n_samples < 1:
             raise InputError(f"n_samples must be a whole number >= 1, got {n_samples!r}")
-        vals, hrows, st, av = _history(values, start, available, history_rows, n_items)
+        vals, hrows, st, av, has_mask, _ = _history(values, start, available, history_rows, n_items)
         checks = np.ascontiguousarray(np.stack(counts, axis=1)) if counts else np.zeros((n_items, 0), np.int64)
-        rows = _bootstrap_rows(vals, hrows, st, av, checks, item_seeds(seed, n_items), int(n_samples),
+        rows = _bootstrap_rows(vals, hrows, st, av, has_mask, checks, item_seeds(seed, n_items), int(n_samples),
                                bool(jitter), cap)
     else:
         rows = []
