@@ -95,6 +95,8 @@ def main() -> None:
         f"- python {platform.python_version()}, numpy {np.__version__}, numba {numba.__version__}, "
         f"pandas {pd.__version__}",
         f"- platform: {platform.platform()}",
+        f"- load average at the end (1/5/15 min; other work shares the cores): "
+        f"{' / '.join(f'{x:.1f}' for x in os.getloadavg())}",
         "",
         "## Times (stock_targets, whole table)",
         "",
