@@ -178,7 +178,9 @@ def test_compound_rows_are_distributions_with_the_right_mean(p, size_mean, ratio
     pmf = dist.demand_pmf("compound", _compound([p], [size_mean], [size_var]), [p * size_mean], periods=n)
     assert (pmf >= 0).all()
     assert pmf.sum() == pytest.approx(1.0, abs=1e-9)
-    assert dist.pmf_mean(pmf)[0] == pytest.approx(n * p * size_mean, rel=1e-6, abs=1e-8)
+    # the grid leaves at most TAIL_TOLERANCE (1e-10) of probability beyond it, a few hundred units
+    # out at most here, so the mean may be short by ~1e-7
+    assert dist.pmf_mean(pmf)[0] == pytest.approx(n * p * size_mean, rel=1e-6, abs=1e-6)
 
 
 def test_grid_grows_for_heavy_tails_and_respects_the_cap():
