@@ -401,7 +401,7 @@ def _add_component(row, base, xmax, w, poisson, a, lp, l1p):
     (or the grid end) and uses the ratio of successive probabilities, stopping
     once the terms are negligible. Past the mode the ratio decreases, so the
     mass beyond the grid is at most a geometric series from the last term
-    (1.0, "unknown", when the grid ends before the mode).
+    (at most ``w`` when the grid ends before the mode).
     """
     if poisson:
         mode = math.floor(a)
@@ -436,8 +436,8 @@ def _add_component(row, base, xmax, w, poisson, a, lp, l1p):
             return 0.0
     ratio = a / (xmax + 1.0) if poisson else (xmax + a) / (xmax + 1.0) * q1
     if xmax < mode or ratio >= 1.0:
-        return 1.0
-    return w * p * ratio / (1.0 - ratio)
+        return w  # no geometric bound yet: at most the whole component
+    return min(w, w * p * ratio / (1.0 - ratio))
 
 
 @njit(cache=True)
