@@ -94,10 +94,10 @@ __all__ = [
 COSTS = ("mse", "mae", "mar", "msr")
 MSE, MAE, MAR, MSR = 0, 1, 2, 3
 
-GRID_1D = 16
+GRID_1D = 24
 GRID_2D = 5
 ROUNDS_2D = 2
-TOL = 1e-4
+TOL = 1e-6
 TOL_2D = 1e-3
 _INVPHI = (math.sqrt(5.0) - 1.0) / 2.0
 _INF = np.inf
