@@ -60,7 +60,6 @@ from __future__ import annotations
 
 import math
 import os
-import zlib
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from contextlib import nullcontext
 from dataclasses import dataclass, field
@@ -73,10 +72,9 @@ from . import methods as _methods
 from .classify import PATTERNS, STATUSES
 from .classify import classify as _classify
 from .errors import InputError
-from .methods.distributions import demand_pmfs, item_seeds
+from .methods.distributions import demand_pmfs
 from .metrics import (
     coverage,
-    hierarchical_rmsse,
     mae,
     mase,
     naive_scale,
@@ -91,6 +89,7 @@ from .metrics import (
 from .panel import DemandPanel, as_panel
 from .route import DEFAULT_LEVELS, Rule, _routed_options, assign_methods, load_overrides, load_policy
 from .simulate import simulate_order_up_to
+from .stock import _label_seeds
 
 __all__ = [
     "BASELINES",
@@ -344,12 +343,6 @@ def _row_quantiles(rows: list, levels: np.ndarray) -> np.ndarray:
     return _ragged_quantiles(np.ascontiguousarray(flat, dtype=np.float64), indptr, levels, 1e-12)
 
 
-def _label_keys(items: pd.Index) -> np.ndarray:
-    """Seed keys from the item labels, so an item's bootstrap does not depend on its row."""
-    return np.fromiter((zlib.crc32(str(x).encode("utf-8")) for x in items), dtype=np.uint64,
-                       count=len(items))
-
-
 # --------------------------------------------------------------------------- one origin
 @dataclass
 class _Origin:
@@ -371,6 +364,7 @@ class _Origin:
     lead_time: int
     review: int
     unmet: str
+    hierarchy: dict = field(default_factory=dict)  # group level -> _Level (empty: no weights at this origin)
     empirical: dict = field(default_factory=dict)  # cached bootstrap quantiles, shared by every empirical fit
 
     @property
@@ -471,9 +465,11 @@ def _empirical_levels(rows: np.ndarray, ctx: _Origin) -> tuple[np.ndarray, np.nd
     """
     if "q" not in ctx.empirical:
         every = np.arange(ctx.train.n_items)
-        q1, qs = _pmf_levels("empirical", None, np.zeros((every.size, 1)), every, ctx,
-                             [(1, ctx.levels), (ctx.lead_time + ctx.review, np.array([ctx.service_level]))])
-        ctx.empirical["q"], ctx.empirical["s"] = q1, qs[:, 0]
+        zero = np.zeros((every.size, 1))
+        # two draws, so that the one-period quantiles are exactly those the forecast command gives
+        ctx.empirical["q"] = _pmf_levels("empirical", None, zero, every, ctx, [(1, ctx.levels)])[0]
+        cover = [(ctx.lead_time + ctx.review, np.array([ctx.service_level]))]
+        ctx.empirical["s"] = _pmf_levels("empirical", None, zero, every, ctx, cover)[0][:, 0]
     return ctx.empirical["q"][rows], ctx.empirical["s"][rows]
 
 
@@ -633,7 +629,7 @@ def _group_labels(panel: DemandPanel, levels: Sequence[str]) -> dict:
     out = {}
     for level in levels:
         if level == "item":
-            out[level] = np.asarray(panel.items.astype(str))
+            out[level] = np.arange(panel.n_items)  # positions: labels are unique by construction
         elif level == "total":
             out[level] = "total"
         elif panel.attributes is not None and level in panel.attributes.columns:
@@ -832,7 +828,7 @@ def backtest(
     if isinstance(overrides, (str, os.PathLike)):
         overrides = load_overrides(overrides)
     groups = _group_labels(panel, group_levels)
-    seeds = item_seeds(int(seed), panel.n_items, keys=_label_keys(panel.items))
+    seeds = _label_seeds(panel.items, int(seed))  # per label: independent of row order and grouping
     names = metric_names(lv)
     scored = [*plan, *([ROUTER] if include_router else [])]
     totals = {m: _Totals(panel.n_items, names, kinds) for m in scored}
@@ -868,7 +864,7 @@ def backtest(
             scores = _item_metrics(fc, ctx, base)
             totals[name].add(scores, ctx)
             if groups:
-                totals[name].hierarchy.append(_hierarchy(ctx, fc, kinds[0]))
+                totals[name].hierarchy.append(_hierarchy(ctx, fc))
 
     patterns = pd.DataFrame(pattern_table, index=panel.items)
     patterns.columns.name = "origin"
@@ -912,21 +908,69 @@ def _start_origin(panel, cut, horizon, mask, lv, service, lead, review, unmet, c
         review=review,
         unmet=unmet,
     )
+    w = ctx.weights[kinds[0]]
+    if groups and (w > 0).any():
+        ctx.hierarchy = _hierarchy_levels(train, groups, w)
     rules = assign_methods(classes, policy=policy, overrides=overrides) if include_router else []
     return ctx, rules, {}
 
 
-def _hierarchy(ctx: _Origin, fc: OriginForecast, kind: str) -> pd.Series:
-    """Weighted RMSSE per group level at one origin, and their mean under ``"all"``."""
-    w = ctx.weights[kind]
-    if not (w > 0).any():
+@dataclass(frozen=True)
+class _Level:
+    """One group level at one origin: membership, RMSSE scale and weight of every group."""
+
+    member: object  # sparse (groups x items) 0/1 matrix
+    scale_sq: np.ndarray
+    weight: np.ndarray
+
+
+def _hierarchy_levels(train: DemandPanel, groups: dict, weights: np.ndarray) -> dict[str, _Level]:
+    """The in-sample side of :func:`sparsedemand.metrics.hierarchical_rmsse`, made once per origin.
+
+    The group scales come from the history before the origin alone, so every
+    method scored at the origin shares them; this uses the metric module's own
+    kernels, and the tests check the result against ``hierarchical_rmsse``.
+    """
+    from .metrics import _group_scale_kernel, _history, _membership  # the metric's own kernels
+
+    hist = _history(train.values, train.available, allow_1d=False)
+    total = weights.sum()
+    out = {}
+    for level, labels in groups.items():
+        member, names, codes = _membership(str(level), labels, train.n_items)
+        order = np.argsort(codes, kind="stable").astype(np.int64)
+        bounds = np.searchsorted(codes[order], np.arange(len(names) + 1)).astype(np.int64)
+        scale_sq = _group_scale_kernel(hist.raw, hist.flags, hist.has_flags, hist.start, order, bounds)
+        out[str(level)] = _Level(member, scale_sq, np.asarray(member @ weights) / total)
+    return out
+
+
+def _hierarchy(ctx: _Origin, fc: OriginForecast) -> pd.Series:
+    """Weighted RMSSE per group level at one origin, and their mean under ``"all"``.
+
+    The same numbers as :func:`sparsedemand.metrics.hierarchical_rmsse` with
+    the origin's scales reused (groups with an undefined score left out and
+    the level's weights renormalised; levels with no defined group left out
+    of the mean).
+    """
+    from .metrics import _masked_mean, _per_scale
+
+    if not ctx.hierarchy:
         return pd.Series({level: np.nan for level in [*ctx.groups, "all"]})
     ok = ctx.available & ~fc.failed[:, None]
-    res = hierarchical_rmsse(ctx.train.values, ctx.actual, fc.mean, ctx.groups, weights=w, available=ok,
-                             insample_available=ctx.train.available)
-    out = res.levels["score"].copy()
-    out["all"] = res.value
-    return out
+    err = np.where(ok, fc.mean - ctx.actual, 0.0)
+    scored = ok.astype(np.float64)
+    out = {}
+    for level, lv in ctx.hierarchy.items():
+        g_ok = np.asarray(lv.member @ scored) > 0
+        g_err = np.asarray(lv.member @ err)
+        score = np.sqrt(_per_scale(_masked_mean(g_err**2, g_ok), lv.scale_sq))
+        defined = np.isfinite(score)
+        w = lv.weight[defined]
+        out[level] = float(np.sum(w * score[defined]) / w.sum()) if defined.any() and w.sum() > 0 else np.nan
+    values = np.array(list(out.values()))
+    out["all"] = float(np.nanmean(values)) if np.isfinite(values).any() else np.nan
+    return pd.Series(out)
 
 
 # --------------------------------------------------------------------------- output tables

@@ -10,6 +10,7 @@ import pytest
 
 from sparsedemand.errors import InputError
 from sparsedemand.evaluate import ROUTER, backtest, metric_names, origin_cuts
+from sparsedemand.metrics import hierarchical_rmsse, item_weights
 from sparsedemand.panel import DemandPanel
 from sparsedemand.route import forecast
 
@@ -226,6 +227,26 @@ def test_pooled_over_origins_and_hierarchy_levels():
     assert one.value("ses", "weighted_rmsse", level="item") == pytest.approx(one.value("ses", "rmsse_volume_weighted"))
 
 
+def test_weighted_rmsse_over_levels_equals_the_metric():
+    # bottom-up WRMSSE (Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364) as
+    # computed by the metrics module, with the backtest reusing the origin's group scales
+    panel = random_panel(50, 130, seed=6)
+    res = backtest(panel, holdout=12, methods=["sba", "zeros"], keep_forecasts=True)
+    train = panel.head(118)
+    groups = {"item": panel.items.to_numpy(), "location": panel.attribute("location").to_numpy(),
+              "category": panel.attribute("category").to_numpy(), "total": "all"}
+    w = item_weights(train.values, last=12, available=train.available)
+    for method in ("sba", "zeros", ROUTER):
+        ref = hierarchical_rmsse(train.values, panel.values[:, 118:], res.forecasts[(1, method)].mean, groups,
+                                 weights=w, available=panel.available[:, 118:],
+                                 insample_available=train.available)
+        got = res.scores[(res.scores["method"] == method) & (res.scores["metric"] == "weighted_rmsse")]
+        got = got.set_index("level")["value"]
+        assert got["all"] == pytest.approx(ref.value, rel=1e-12)
+        for level in groups:
+            assert got[level] == pytest.approx(ref.levels.loc[level, "score"], rel=1e-12)
+
+
 def test_relative_mae_geometric_mean_by_hand():
     # AvgRelMAE: weighted geometric mean of MAE(method) / MAE(baseline), each item weighted by
     # its scored periods (Davydenko & Fildes 2013, IJF 29:510-522)
@@ -278,12 +299,25 @@ def test_router_beats_zeros_and_repeat_last_against_the_true_mean():
 
 
 def test_router_matches_the_routed_forecast_at_each_origin():
-    panel = random_panel(60, 150, seed=8)
+    base = random_panel(60, 150, seed=8)
+    values = base.values.copy()
+    values[50:54, 90:] = 0.0  # gone quiet
+    values[54] = 0.0  # never sold
+    values[55] = 0.0
+    values[55, 120] = 3.0  # a single demand: too short
+    panel = DemandPanel(values, items=base.items, periods=base.periods, available=base.available,
+                        attributes=base.attributes)
     res = backtest(panel, holdout=14, origins=2, methods=["sba", "ses", "tsb"], keep_forecasts=True)
+    seen = set()
     for k, cut in enumerate(res.origins["train_periods"], start=1):
         routed = forecast(panel.head(int(cut)), 14)
-        assert np.allclose(res.forecasts[(k, ROUTER)].mean, routed.point.to_numpy(), rtol=1e-12, atol=1e-12)
+        seen |= set(routed.audit["method"])
+        mine = res.forecasts[(k, ROUTER)]
+        assert np.allclose(mine.mean, routed.point.to_numpy(), rtol=1e-12, atol=1e-12)
+        q = routed.quantiles[[f"q{x}" for x in (50, 80, 90, 95)]].to_numpy().reshape(60, 14, 4)
+        assert np.array_equal(np.broadcast_to(mine.quantiles, q.shape), q)
         assert res.patterns[k].tolist() == routed.classes["pattern"].tolist()
+    assert seen >= {"sba", "tsb", "zeros", "mean_since_first"}
 
 
 def test_router_with_a_fixed_parameter_policy_is_fitted_on_its_own():
