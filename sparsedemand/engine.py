@@ -59,7 +59,7 @@ from . import io as _io
 from .errors import InputError
 from .io import Columns, LoadSummary, from_frame, staged_output, write_table
 from .panel import DemandPanel
-from .route import DEFAULT_CANDIDATES, DEFAULT_LEVELS, DEFAULT_POLICY, Rule
+from .route import DEFAULT_CANDIDATES, DEFAULT_LEVELS, Rule
 
 __all__ = [
     "COMMANDS",
@@ -81,6 +81,7 @@ _ROW = "__sparsedemand_row__"
 WORKER_ENV = {"NUMBA_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
               "OPENBLAS_NUM_THREADS": "1"}
 _QUIET_LOGGERS = ("distributed.shuffle._scheduler_plugin", "distributed.shuffle")
+_SELECTION_COLUMNS = ["pattern", "method", "mean_rmsse", "items", "scored_items", "chosen"]
 
 
 # --------------------------------------------------------------------------- result
@@ -192,7 +193,9 @@ def start_client(scheduler=None, *, n_workers: int = 2):
         from distributed import Client, LocalCluster
     except ImportError:
         raise InputError("--engine dask needs dask.distributed: pip install 'sparsedemand[dask]'") from None
-    for name in _QUIET_LOGGERS:  # the local scheduler runs here: keep its shuffle notices off stderr
+    # The local scheduler runs in this process: keep its shuffle notices off stderr (a failed
+    # partition's error reaches the caller as an InputError, not as a worker log).
+    for name in _QUIET_LOGGERS:
         logging.getLogger(name).setLevel(logging.ERROR)
     if isinstance(scheduler, Client):
         yield scheduler
@@ -211,7 +214,7 @@ def start_client(scheduler=None, *, n_workers: int = 2):
         return
     n = _whole("--workers", n_workers, minimum=1)
     cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                           dashboard_address=None, env=dict(WORKER_ENV))
+                           dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL)
     try:
         client = Client(cluster)
         try:
@@ -244,6 +247,7 @@ def run_distributed(
     holdout: int | None = None,
     seed: int = 0,
     classify_options: Mapping[str, object] | None = None,
+    forecast_options: Mapping[str, object] | None = None,
     lead_time: int | None = None,
     lead_time_column: str | None = None,
     review_period: int = 1,
@@ -283,6 +287,9 @@ def run_distributed(
         As for :func:`sparsedemand.route.forecast` (``policy`` and
         ``overrides`` may be file paths). ``holdout`` is also the backtest's
         holdout length.
+    forecast_options : mapping, optional
+        Any further keyword of :func:`sparsedemand.route.forecast` (for
+        example ``change_level``).
     lead_time, lead_time_column, review_period, service_level, fill_rate, on_hand_file
         Stock options, as for the ``stock`` command: exactly one of
         ``lead_time`` and ``lead_time_column``; the target defaults to a 0.95
@@ -350,10 +357,7 @@ def run_distributed(
         items = pd.Index([x for info in infos for x in info["items"]], name="item")
         summary = _summary(summary, infos, items, load, calendar)
 
-        if overrides:
-            unknown = [item for item in overrides if item not in set(items)]
-            if unknown:
-                raise InputError(f"override for unknown item {unknown[0]!r} (not in the input)")
+        _check_override_items(overrides, items)
         snapshot = None
         if command == "stock":
             if stock_opts["lead_time_column"] is not None:
@@ -367,15 +371,20 @@ def run_distributed(
             horizon = _whole("--holdout", holdout, minimum=1)
         _check_forecast(calendar, horizon, levels, cost, selection, holdout)
 
+        extra_fopts = dict(forecast_options or {})
+        clash = sorted(set(extra_fopts) & {"data", "horizon", "levels", "policy", "overrides", "cost", "selection",
+                                           "candidates", "holdout", "seed", "classify_options", "progress"})
+        if clash:
+            raise InputError(f"forecast_options: give {clash[0]!r} as its own keyword")
         fopts = dict(levels=tuple(levels), policy=policy, cost=cost, selection="policy", seed=seed,
-                     classify_options=copts)
+                     classify_options=copts, **extra_fopts)
         selection_table = None
         if selection == "holdout" and command != "backtest":
             length = holdout or horizon
-            _check_candidates(candidates)
-            sums = _gather(client, parts, _holdout_sums, tuple(candidates), length, cost, copts)
-            fopts["policy"], selection_table = _choose(pd.concat(sums, ignore_index=True), policy or DEFAULT_POLICY,
-                                                       tuple(candidates), length)
+            base = _route()._resolve_policy(policy)  # the table the router would start from
+            change = extra_fopts.get("change_level", _route().CHANGE_LEVEL)
+            scores = _gather(client, parts, _holdout_scores, base, tuple(candidates), length, cost, copts, change)
+            fopts["policy"], selection_table = _choose(scores, base, tuple(candidates), length)
 
         bopts = {}
         if command == "backtest":
@@ -593,7 +602,7 @@ def _run_part(part: _Part, task: _Task, snapshot: pd.DataFrame | None, index: in
     overrides = None
     if task.overrides:
         mine = set(panel.items)
-        overrides = {k: v for k, v in task.overrides.items() if k in mine}
+        overrides = {k: v for k, v in task.overrides.items() if k in mine or str(k) in mine}
     part_file = f"part-{index:05d}.parquet"
     out: dict = {}
     if task.command == "backtest":
@@ -643,43 +652,24 @@ def _stock_table(result, opts: dict, snapshot: pd.DataFrame | None) -> pd.DataFr
                          **extra)
 
 
-def _holdout_sums(part: _Part, candidates: tuple, holdout: int, cost: str, classify_options: dict) -> pd.DataFrame:
-    """Per pattern and candidate: the sum and count of finite holdout RMSSE over this partition's items.
+def _holdout_scores(part: _Part, policy: Mapping, candidates: tuple, holdout: int, cost: str,
+                    classify_options: dict, change_level) -> pd.DataFrame:
+    """The router's holdout scores on this partition's items (one row per policy row and candidate).
 
-    The same fits and scores as the router's holdout selection; the mean is
-    taken over all partitions on the client.
+    The items' policy rows are found as the router finds them; ``mean_rmsse``
+    times ``scored_items`` is the partition's sum, and the client adds the
+    sums up before any method is chosen.
     """
-    from . import methods as _methods
-    from .classify import PATTERNS, classify
-    from .metrics import rmsse
-    from .route import _routed_options
+    from .classify import classify
+    from .route import _select_by_holdout, rate_change, routing_keys
 
     panel = part.panel
-    records = []
     if panel is None or panel.n_items == 0:
-        return pd.DataFrame(records, columns=["pattern", "method", "sum", "count", "items"])
+        return pd.DataFrame(columns=_SELECTION_COLUMNS)
     classes = classify(panel, **classify_options)
-    cut = panel.n_periods - holdout
-    train = panel.head(cut)
-    actual = panel.values[:, cut:]
-    actual_ok = None if panel.available is None else panel.available[:, cut:]
-    train_ok = train.available
-    patterns = classes["pattern"].to_numpy()
-    for pattern in PATTERNS:
-        rows = np.flatnonzero(patterns == pattern)
-        if rows.size == 0:
-            continue
-        for name in candidates:
-            fitted = _methods.fit(name, train.values[rows], train.start[rows],
-                                  None if train_ok is None else train_ok[rows], horizon=holdout,
-                                  **_routed_options(Rule(name), cost))
-            s = np.asarray(rmsse(train.values[rows], actual[rows], fitted.mean,
-                                 available=None if actual_ok is None else actual_ok[rows],
-                                 insample_available=None if train_ok is None else train_ok[rows]), dtype=float)
-            ok = np.isfinite(s)
-            records.append({"pattern": pattern, "method": name, "sum": float(s[ok].sum()), "count": int(ok.sum()),
-                            "items": int(rows.size)})
-    return pd.DataFrame(records, columns=["pattern", "method", "sum", "count", "items"])
+    changes = None if change_level is None else rate_change(panel, classes, level=change_level)
+    keys = routing_keys(classes, None if changes is None else changes["changed"].to_numpy())
+    return _select_by_holdout(panel, keys, policy, candidates, holdout, cost)[1]
 
 
 # --------------------------------------------------------------------------- client side: central steps
@@ -720,6 +710,18 @@ def _summary(base: LoadSummary, infos: list, items: pd.Index, load: _Load, calen
     )
 
 
+def _check_override_items(overrides, items: pd.Index) -> None:
+    """Every override names an item of the whole input (labels match as text, as the router matches them)."""
+    if not overrides:
+        return
+    known = set(items)
+    for key, rule in overrides.items():
+        if key not in known and str(key) not in known:
+            source = getattr(rule, "source", "")
+            origin = source if source.startswith("override file") else "overrides"
+            raise InputError(f"{origin}: unknown item {key!r} (not in the input)")
+
+
 def _snapshot(path, items: pd.Index) -> pd.DataFrame:
     """The on-hand snapshot checked against every item, as the local command reads it."""
     from .cli import read_on_hand
@@ -728,28 +730,37 @@ def _snapshot(path, items: pd.Index) -> pd.DataFrame:
     return pd.DataFrame(aligned, index=items)
 
 
-def _choose(sums: pd.DataFrame, policy: Mapping[str, Rule], candidates: tuple, holdout: int):
-    """Per pattern, the candidate with the lowest mean RMSSE over all partitions (first on ties)."""
-    from .classify import PATTERNS
+def _choose(parts: list[pd.DataFrame], policy: Mapping[str, Rule], candidates: tuple, holdout: int):
+    """Per pattern, the candidate with the lowest mean RMSSE over every partition's items (first on ties).
 
-    totals = sums.groupby(["pattern", "method"], sort=False)[["sum", "count", "items"]].sum()
+    The same choice, audit text and score table as the router's holdout
+    selection on one panel; the means differ from it by float round-off only.
+    """
+    from .classify import PATTERNS
+    from .route import ROUTING_STATUSES
+
+    table = pd.concat([p for p in parts if len(p)], ignore_index=True)
+    scored = table["scored_items"].to_numpy(dtype=np.float64)
+    table["sum"] = np.where(scored > 0, table["mean_rmsse"].to_numpy(dtype=np.float64) * scored, 0.0)
+    totals = table.groupby(["pattern", "method"], sort=False)[["sum", "scored_items", "items"]].sum()
     new_policy = dict(policy)
     records = []
-    for pattern in PATTERNS:
+    for pattern in (*PATTERNS, *ROUTING_STATUSES):
         if pattern not in totals.index.get_level_values(0):
             continue
         scores = {}
         for name in candidates:
-            s, n = totals.loc[(pattern, name), ["sum", "count"]]
-            scores[name] = float(s / n) if n > 0 else np.inf
+            row = totals.loc[(pattern, name)]
+            n = int(row["scored_items"])
+            scores[name] = (float(row["sum"] / n) if n > 0 else np.inf, n)
         items = int(totals.loc[(pattern, candidates[0]), "items"])
-        best = min(scores, key=scores.get)
-        for name, score in scores.items():
+        best = min(scores, key=lambda name: scores[name][0])
+        for name, (score, n) in scores.items():
             records.append({"pattern": pattern, "method": name, "mean_rmsse": score, "items": items,
-                            "chosen": name == best})
+                            "scored_items": n, "chosen": name == best})
         new_policy[pattern] = Rule(best, {}, source=f"holdout selection ({holdout} periods, "
-                                                    f"mean RMSSE {scores[best]:.3f})")
-    return new_policy, pd.DataFrame(records)
+                                                    f"mean RMSSE {scores[best][0]:.3f})")
+    return new_policy, pd.DataFrame(records, columns=_SELECTION_COLUMNS)
 
 
 def _central_tables(command: str, results: list, selection, stage: Path, paths: dict, out_dir) -> dict:
@@ -902,14 +913,6 @@ def _check_forecast(calendar: DemandPanel, horizon, levels, cost, selection, hol
     from .route import _check_forecast_options
 
     _check_forecast_options(horizon, tuple(levels), cost, selection, holdout, calendar)
-
-
-def _check_candidates(candidates) -> None:
-    from . import methods as _methods
-
-    for name in candidates:
-        if name not in _methods.METHODS:
-            raise InputError(f"--candidates: unknown method {name!r}")
 
 
 def _route():
