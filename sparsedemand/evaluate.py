@@ -60,7 +60,7 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from contextlib import nullcontext
 from dataclasses import dataclass, field
 
@@ -87,7 +87,15 @@ from .metrics import (
     item_weights,
 )
 from .panel import DemandPanel, as_panel
-from .route import DEFAULT_LEVELS, Rule, _routed_options, assign_methods, load_overrides, load_policy
+from .route import (
+    DEFAULT_LEVELS,
+    DEFAULT_POLICY,
+    Rule,
+    _routed_options,
+    assign_methods,
+    load_overrides,
+    load_policy,
+)
 from .simulate import simulate_order_up_to
 from .stock import _label_seeds
 
@@ -114,8 +122,7 @@ _POINT = ("mase", "rmsse", "mae", "scaled_bias", "pis", "shortages")
 _STOCK = ("fill_rate", "cycle_service_level", "avg_on_hand", "stockout_periods")
 _WEIGHTED = ("mase", "rmsse")
 _FALLBACK = "mean_since_first"
-# The summary's columns: (column, scores metric or None when derived, how "best" is judged).
-_MAIN = "rmsse"
+_MAIN = "rmsse"  # the metric the router is ranked on
 
 
 # --------------------------------------------------------------------------- layout
@@ -596,8 +603,18 @@ def _check_weights(weights) -> tuple[str, ...]:
     return tuple(dict.fromkeys(kinds))
 
 
+def _rule_options(rule: Rule, cost: str, season_length: int) -> dict:
+    """The options the router fits a rule with (fixed parameters kept, smoothing constants optimised)."""
+    options = _routed_options(rule, cost)
+    if "season_length" in _methods.method_options(rule.method) and options.get("season_length") is None:
+        if not season_length:
+            raise InputError(f"{rule.method} needs a day, week or month calendar (the season length)")
+        options["season_length"] = season_length
+    return options
+
+
 def _method_plan(methods, options, baseline: str, panel: DemandPanel, cost: str) -> dict[str, dict]:
-    """The methods to fit, each with its options; the baseline and the router's fallback always included."""
+    """The methods to score, in report order, each with its options (the baseline and the fallback added)."""
     if methods is None:
         names = [m for m in _methods.METHODS if m != "seasonal_mean" or panel.season_length]
     else:
@@ -609,18 +626,18 @@ def _method_plan(methods, options, baseline: str, panel: DemandPanel, cost: str)
         if name not in known:
             raise InputError(f"unknown method {name!r}; choose from {', '.join(_methods.METHODS)}")
     plan = {}
-    for name in dict.fromkeys([baseline, *names, _FALLBACK]):
+    for name in dict.fromkeys([*names, baseline, _FALLBACK]):
         if name in BASELINES:
-            opts = {}
+            opts = {"season_length": panel.season_length} if name == "seasonal_mean" else {}
+            if name == "seasonal_mean" and not panel.season_length:
+                raise InputError("seasonal_mean needs a day, week or month calendar (the season length)")
         else:
             # the router's own options, so that routed items can take these rows
-            opts = _routed_options(Rule(name), cost)
-        if name == "seasonal_mean":
-            if not panel.season_length:
-                raise InputError("seasonal_mean needs a day, week or month calendar (the season length)")
-            opts["season_length"] = panel.season_length
-        opts.update(dict((options or {}).get(name, {})))
-        plan[name] = opts
+            opts = _rule_options(Rule(name), cost, panel.season_length)
+        extra = (options or {}).get(name, {})
+        if not isinstance(extra, Mapping):
+            raise InputError(f"method_options[{name!r}] must be a mapping of option to value, got {extra!r}")
+        plan[name] = {**opts, **extra}
     return plan
 
 
@@ -675,7 +692,7 @@ def _router_forecast(ctx: _Origin, rules: list[Rule], kept: dict[str, tuple[dict
     for g, pos in enumerate(first):
         rows = np.flatnonzero(codes == g)
         rule = rules[pos]
-        options = _routed_options(rule, cost)
+        options = _rule_options(rule, cost, ctx.train.season_length)
         have = kept.get(rule.method)
         if have is not None and have[0] == options:
             part = have[1].take(rows)
@@ -798,7 +815,7 @@ def backtest(
     >>> y = rng.poisson(0.4, size=(20, 120)).astype(float)
     >>> res = backtest(y, holdout=14, origins=2, methods=["sba", "zeros"])
     >>> res.summary().index.tolist()
-    ['mean_since_first', 'sba', 'zeros', 'router']
+    ['sba', 'zeros', 'mean_since_first', 'router']
     >>> round(res.value("mean_since_first", "rel_mae_gmean"), 6)
     1.0
     """
@@ -825,6 +842,8 @@ def backtest(
     plan = _method_plan(methods, method_options, baseline, panel, cost)
     if isinstance(policy, (str, os.PathLike)):
         policy = load_policy(policy)
+    elif policy is not None:
+        policy = {**DEFAULT_POLICY, **policy}  # the rows given replace default rows, the others stay
     if isinstance(overrides, (str, os.PathLike)):
         overrides = load_overrides(overrides)
     groups = _group_labels(panel, group_levels)
@@ -836,7 +855,9 @@ def backtest(
     pattern_table = {}
     kept_forecasts: dict = {}
 
-    work = [(k, name) for k in range(len(cuts)) for name in scored]
+    # the baseline first: every other method's relative MAE divides by it
+    fit_order = [baseline, *(m for m in scored if m != baseline)]
+    work = [(k, name) for k in range(len(cuts)) for name in fit_order]
     bar = progress(work, label="backtest") if progress else nullcontext(work)
     current = -1
     with bar as steps:
@@ -847,6 +868,7 @@ def backtest(
                                                  unmet, classify_options, kinds, price, groups, seeds,
                                                  policy, overrides, include_router)
                 pattern_table[k + 1] = ctx.classes["pattern"].to_numpy()
+                needed = {r.method for r in rules} | {_FALLBACK} if include_router else set()
                 base = None
             if name == ROUTER:
                 fc = _router_forecast(ctx, rules, kept, cost, horizon)
@@ -855,7 +877,7 @@ def backtest(
                 fitted = _methods.fit(name, train.values, train.start, train.available, horizon=horizon,
                                       events=ctx.events, **plan[name])
                 fc = _predictive(fitted, np.arange(train.n_items), ctx)
-                if include_router or name == baseline:
+                if name in needed:
                     kept[name] = (plan[name], fc)
             if name == baseline:
                 base = fc
