@@ -20,9 +20,9 @@ What keeps the partitions equal to one big panel
   appearance, duplicate rows are summed in the same order, and a bad row is
   reported with its row number in the whole input.
 * **Per-item work.** Classification, fitting, stock targets and per-item
-  backtest scores depend on the item's own history only; bootstrap seeds are
-  derived from the item label where the kernels do so (see the caveat on
-  forecast quantiles in :func:`run_distributed`).
+  backtest scores depend on the item's own history only, and every bootstrap
+  is seeded from the item label, so no result depends on which items share a
+  partition.
 * **Cross-item steps done centrally.** Holdout selection (the method per
   pattern with the lowest mean RMSSE over all the pattern's items) adds up the
   partitions' sums and counts before choosing; per-item overrides, the
@@ -64,6 +64,8 @@ from .route import DEFAULT_CANDIDATES, DEFAULT_LEVELS, Rule
 __all__ = [
     "COMMANDS",
     "ENGINES",
+    "LOCAL_CLUSTER_OPTIONS",
+    "WORKER_ENV",
     "DistributedRun",
     "run_distributed",
     "start_client",
@@ -80,6 +82,10 @@ _ROW = "__sparsedemand_row__"
 #: Environment of the worker processes of a cluster started here: one thread per kernel.
 WORKER_ENV = {"NUMBA_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
               "OPENBLAS_NUM_THREADS": "1"}
+#: Options of the local cluster started here: loopback only, no dashboard; the scheduler's own HTTP
+#: routes (health, metrics) on a free loopback port rather than the default 8787 another cluster may hold.
+LOCAL_CLUSTER_OPTIONS = {"threads_per_worker": 1, "processes": True, "host": "127.0.0.1", "dashboard_address": None,
+                         "scheduler_kwargs": {"dashboard_address": "127.0.0.1:0"}, "env": WORKER_ENV}
 _QUIET_LOGGERS = ("distributed.shuffle._scheduler_plugin", "distributed.shuffle")
 _SELECTION_COLUMNS = ["pattern", "method", "mean_rmsse", "items", "scored_items", "chosen"]
 
@@ -206,15 +212,14 @@ def start_client(scheduler=None, *, n_workers: int = 2):
         try:
             client = Client(scheduler.strip(), timeout="20s")
         except (OSError, TimeoutError) as exc:
-            raise InputError(f"--scheduler {scheduler}: cannot connect ({_first_line(exc)})") from None
+            raise InputError(f"--scheduler {scheduler}: cannot connect ({_io._first_line(exc)})") from None
         try:
             yield client
         finally:
             client.close()
         return
     n = _whole("--workers", n_workers, minimum=1)
-    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                           dashboard_address=None, env=dict(WORKER_ENV), silence_logs=logging.CRITICAL)
+    cluster = LocalCluster(n_workers=n, silence_logs=logging.CRITICAL, **LOCAL_CLUSTER_OPTIONS)
     try:
         client = Client(cluster)
         try:
@@ -307,14 +312,12 @@ def run_distributed(
 
     Notes
     -----
-    Identical to the local engine up to float round-off: forecasts, audit,
-    patterns, stock targets and per-item backtest scores (compare them sorted
-    by item: rows come partition by partition). Forecast quantiles of items
-    with the bootstrap (``"empirical"``) distribution are the exception while
-    the router seeds its one-period bootstrap by row position within a
-    method group rather than by item label. Backtest aggregates that mix
-    items beyond sums and counts are left out (see
-    :func:`combine_backtest_scores`).
+    Identical to the local engine up to float round-off: forecasts and
+    quantiles, audit, patterns, holdout selection, stock targets, per-item
+    backtest scores and the backtest scores that are means or totals over
+    items (compare tables sorted by item: rows come partition by partition).
+    Backtest aggregates that mix items in other ways are left out and named
+    in ``not_combined`` (see :func:`combine_backtest_scores`).
 
     Examples
     --------
@@ -338,7 +341,8 @@ def run_distributed(
         horizon = _whole("--horizon", horizon, minimum=1)
     if command == "backtest" and holdout is None:
         raise InputError("--holdout is needed for a backtest")
-    if isinstance(policy, (str, os.PathLike)):
+    policy_file = str(policy) if isinstance(policy, (str, os.PathLike)) else None
+    if policy_file is not None:
         policy = _route().load_policy(policy)
     if isinstance(overrides, (str, os.PathLike)):
         overrides = _route().load_overrides(overrides, item_column="item")
@@ -360,39 +364,27 @@ def run_distributed(
         _check_override_items(overrides, items)
         snapshot = None
         if command == "stock":
-            if stock_opts["lead_time_column"] is not None:
-                longest = max(x for x in _gather(client, parts, _longest_lead, stock_opts) if x is not None)
-            else:
-                longest = stock_opts["lead_time"]
-            horizon = int(longest) + int(stock_opts["review_period"])
+            horizon = _stock_horizon(client, parts, stock_opts)
             if stock_opts["on_hand_file"] is not None:
                 snapshot = _snapshot(stock_opts["on_hand_file"], items)
         if command == "backtest":
             horizon = _whole("--holdout", holdout, minimum=1)
         _check_forecast(calendar, horizon, levels, cost, selection, holdout)
 
-        extra_fopts = dict(forecast_options or {})
-        clash = sorted(set(extra_fopts) & {"data", "horizon", "levels", "policy", "overrides", "cost", "selection",
-                                           "candidates", "holdout", "seed", "classify_options", "progress"})
-        if clash:
-            raise InputError(f"forecast_options: give {clash[0]!r} as its own keyword")
-        fopts = dict(levels=tuple(levels), policy=policy, cost=cost, selection="policy", seed=seed,
-                     classify_options=copts, **extra_fopts)
+        fopts = _keywords("forecast_options", forecast_options, _OWN_FORECAST_KEYWORDS)
+        fopts.update(levels=tuple(levels), policy=policy, cost=cost, selection="policy", seed=seed,
+                     classify_options=copts)
         selection_table = None
         if selection == "holdout" and command != "backtest":
             length = holdout or horizon
             base = _route()._resolve_policy(policy)  # the table the router would start from
-            change = extra_fopts.get("change_level", _route().CHANGE_LEVEL)
+            change = fopts.get("change_level", _route().CHANGE_LEVEL)
             scores = _gather(client, parts, _holdout_scores, base, tuple(candidates), length, cost, copts, change)
             fopts["policy"], selection_table = _choose(scores, base, tuple(candidates), length)
 
         bopts = {}
         if command == "backtest":
-            bopts = dict(backtest_options or {})
-            clash = sorted(set(bopts) & {"data", "holdout", "origins", "step", "policy", "overrides", "levels",
-                                         "cost", "seed", "classify_options"})
-            if clash:
-                raise InputError(f"backtest_options: give {clash[0]!r} as its own keyword")
+            bopts = _keywords("backtest_options", backtest_options, _OWN_BACKTEST_KEYWORDS)
             bopts.update(holdout=horizon, origins=origins, step=step, policy=policy, levels=tuple(levels),
                          cost=cost, seed=seed, classify_options=copts)
 
@@ -408,6 +400,7 @@ def run_distributed(
             extra = _central_tables(command, results, selection_table, stage, paths, out_dir)
             manifest = _manifest(command, name, columns, frequency, net_returns, horizon, copts, fopts, stock_opts,
                                  bopts, scheduler, n_parts, extra.get("not_combined", ()), summary)
+            manifest["policy_file"] = policy_file
             _io.write_text(json.dumps(manifest, indent=2, default=str) + "\n", stage / "run.json")
             paths["run"] = Path(out_dir) / "run.json"
         client.cancel(parts)
@@ -446,7 +439,7 @@ def _dask_frame(source, columns: Columns):
         try:
             frame = dd.read_parquet(path)
         except Exception as exc:  # pyarrow raises many types
-            raise InputError(f"{name}: cannot read as Parquet ({_first_line(exc)})") from None
+            raise InputError(f"{name}: cannot read as Parquet ({_io._first_line(exc)})") from None
     else:
         raise InputError(f"source must be a Parquet path or a DataFrame in long layout, got {type(source).__name__}")
     _io._require(frame, (columns.item, columns.period, columns.quantity), name, columns)
@@ -596,9 +589,6 @@ def _run_part(part: _Part, task: _Task, snapshot: pd.DataFrame | None, index: in
     if panel is None or panel.n_items == 0:
         return {}
     stage = Path(task.stage)
-    if not stage.is_dir():
-        raise InputError(f"--out {task.out_dir}: the workers cannot see the staging folder {stage}; "
-                         "give an output folder on storage shared by every worker")
     overrides = None
     if task.overrides:
         mine = set(panel.items)
@@ -609,7 +599,7 @@ def _run_part(part: _Part, task: _Task, snapshot: pd.DataFrame | None, index: in
         from .evaluate import backtest
 
         result = backtest(panel, overrides=overrides, **task.backtest)
-        write_table(result.item_scores, stage / "item_scores" / part_file)
+        _write_part(result.item_scores, stage, "item_scores", part_file, task.out_dir)
         out["scores"] = result.scores
         out["origins"] = result.origins
         out["settings"] = result.settings
@@ -624,12 +614,24 @@ def _run_part(part: _Part, task: _Task, snapshot: pd.DataFrame | None, index: in
 
         out["stock_totals"] = stock_totals(tables["stock"])
     for name, frame in tables.items():
-        write_table(frame, stage / name / part_file)
+        _write_part(frame, stage, name, part_file, task.out_dir)
     audit = result.audit
     out["routing"] = pd.DataFrame({"pattern": audit["pattern"], "method": audit["method"],
                                    "items": 1, "with_warnings": audit["warnings"].astype(bool).astype(np.int64)})
     out["routing"] = out["routing"].groupby(["pattern", "method"], sort=False, as_index=False).sum()
     return out
+
+
+def _write_part(frame: pd.DataFrame, stage: Path, name: str, part_file: str, out_dir: str) -> None:
+    """One partition's file of a dataset, only while the run's staging folder exists.
+
+    The check just before writing keeps a worker that finishes after a failed
+    or interrupted run from recreating the removed staging folder.
+    """
+    if not (stage / name).is_dir():
+        raise InputError(f"--out {out_dir}: the workers cannot see the staging folder {stage}; give an output "
+                         "folder on storage shared by every worker (or the run was stopped)")
+    write_table(frame, stage / name / part_file)
 
 
 def _stock_table(result, opts: dict, snapshot: pd.DataFrame | None) -> pd.DataFrame:
@@ -903,6 +905,30 @@ def _stock_options(command, lead_time, lead_time_column, review_period, service_
             "service_level": service_level, "fill_rate": fill_rate, "on_hand_file": on_hand_file, "seed": seed}
 
 
+_OWN_FORECAST_KEYWORDS = frozenset({"data", "horizon", "levels", "policy", "overrides", "cost", "selection",
+                                    "candidates", "holdout", "seed", "classify_options", "progress"})
+_OWN_BACKTEST_KEYWORDS = frozenset({"data", "holdout", "origins", "step", "policy", "overrides", "levels", "cost",
+                                    "seed", "classify_options", "progress"})
+
+
+def _keywords(option: str, given: Mapping | None, own: frozenset) -> dict:
+    """Further keywords passed through to a kernel; those with their own keyword here are refused."""
+    out = dict(given or {})
+    clash = sorted(set(out) & own)
+    if clash:
+        raise InputError(f"{option}: give {clash[0]!r} as its own keyword")
+    return out
+
+
+def _stock_horizon(client, parts, opts: dict) -> int:
+    """The stock command's horizon: the longest lead time plus the review period."""
+    if opts["lead_time_column"] is not None:
+        longest = max(x for x in _gather(client, parts, _longest_lead, opts) if x is not None)
+    else:
+        longest = opts["lead_time"]
+    return int(longest) + int(opts["review_period"])
+
+
 def _tables_of(command: str) -> tuple[str, ...]:
     return {"forecast": ("forecasts", "audit", "patterns"),
             "stock": ("stock", "forecasts", "audit", "patterns"),
@@ -940,8 +966,3 @@ def _input_rows(message: str, rows: np.ndarray) -> str:
         return "a placeholder row"
 
     return _ROW_NUMBER.sub(swap, message)
-
-
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0] if text else type(exc).__name__

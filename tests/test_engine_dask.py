@@ -8,6 +8,7 @@ item, through the same Parquet writer), up to float round-off.
 from __future__ import annotations
 
 import json
+import multiprocessing
 from pathlib import Path
 
 import numpy as np
@@ -20,7 +21,7 @@ distributed = pytest.importorskip(
 
 from sparsedemand.cli import compute_stock  # noqa: E402
 from sparsedemand.demo import DemoSpec, make_demo  # noqa: E402
-from sparsedemand.engine import WORKER_ENV, run_distributed  # noqa: E402
+from sparsedemand.engine import LOCAL_CLUSTER_OPTIONS, run_distributed  # noqa: E402
 from sparsedemand.errors import InputError  # noqa: E402
 from sparsedemand.io import Columns, read_demand, write_table  # noqa: E402
 from sparsedemand.route import DEFAULT_POLICY, Rule, forecast  # noqa: E402
@@ -35,8 +36,8 @@ SEED = 3
 @pytest.fixture(scope="module")
 def client():
     """Two worker processes with one thread each, on loopback only, no dashboard."""
-    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                       dashboard_address=None, env=dict(WORKER_ENV))
+    cluster = distributed.LocalCluster(n_workers=2, **LOCAL_CLUSTER_OPTIONS)
+    assert LOCAL_CLUSTER_OPTIONS["threads_per_worker"] == 1 and LOCAL_CLUSTER_OPTIONS["host"] == "127.0.0.1"
     c = distributed.Client(cluster)
     yield c
     c.close()
@@ -143,8 +144,9 @@ def test_holdout_selection_is_taken_over_all_items(client, dataset, local_panel,
     panel, _ = local_panel
     local = forecast(panel, 7, selection="holdout", holdout=14, seed=SEED)
     out = tmp_path / "run"
-    run = run_distributed("forecast", dataset, out_dir=out, scheduler=client, partitions=3, horizon=7,
-                          selection="holdout", holdout=14, columns=COLUMNS, seed=SEED)
+    # by address, as a user points the engine at a running scheduler
+    run = run_distributed("forecast", dataset, out_dir=out, scheduler=client.scheduler.address, partitions=3,
+                          horizon=7, selection="holdout", holdout=14, columns=COLUMNS, seed=SEED)
     got = pd.read_parquet(out / "selection.parquet")
     pd.testing.assert_frame_equal(got, local.selection, check_dtype=False, rtol=1e-12)
     assert_same(out / "audit", local.audit, ["item"], tmp_path)
@@ -180,3 +182,14 @@ def test_bootstrap_quantiles_do_not_depend_on_partitions(client, dataset, tmp_pa
                     policy=policy, columns=COLUMNS, seed=SEED)
     assert (local.audit["distribution"] == "empirical").sum() > 10
     assert_same(out / "forecasts", local.table(), ["item", "step"], tmp_path)
+
+
+def test_own_local_cluster_is_started_and_closed(dataset, local_panel, tmp_path):
+    panel, _ = local_panel
+    local = forecast(panel, 3, seed=SEED)
+    before = {p.pid for p in multiprocessing.active_children()}
+    out = tmp_path / "run"
+    run = run_distributed("forecast", dataset, out_dir=out, n_workers=2, horizon=3, columns=COLUMNS, seed=SEED)
+    assert run.partitions == 3  # the input's three files (more than the two worker threads)
+    assert_same(out / "forecasts", local.table(), ["item", "step"], tmp_path)
+    assert {p.pid for p in multiprocessing.active_children()} <= before  # its worker processes are gone
