@@ -79,9 +79,9 @@ def input_options(func):
     return func
 
 
-def load_input(kwargs: dict, console: Console):
-    """Read the input named by the shared options; print the load summary."""
-    columns = Columns(
+def pop_columns(kwargs: dict) -> Columns:
+    """The column names given by the shared input options."""
+    return Columns(
         item=kwargs.pop("item_column"),
         period=kwargs.pop("period_column"),
         quantity=kwargs.pop("quantity_column"),
@@ -91,6 +91,11 @@ def load_input(kwargs: dict, console: Console):
         unit_price=kwargs.pop("price_column"),
         attributes=tuple(kwargs.pop("attribute_columns")),
     )
+
+
+def load_input(kwargs: dict, console: Console):
+    """Read the input named by the shared options; print the load summary."""
+    columns = pop_columns(kwargs)
     path = kwargs.pop("input_path")
     source = {
         "input": str(Path(path).resolve()),
@@ -149,6 +154,62 @@ def demo(out_dir: Path, data_only: bool, parts: int, seed: int, horizon: int, qu
 
     console = Console(quiet)
     run_demo(out_dir, parts=parts, seed=seed, horizon=horizon, data_only=data_only, say=console.say)
+
+
+def engine_options(func):
+    """Where the work runs: this process, or a Dask cluster."""
+    options = [
+        click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
+                     help="dask: partition a long Parquet input by item and run on a Dask cluster."),
+        click.option("--scheduler", default=None,
+                     help="Address of a running Dask scheduler (tcp://host:8786); default: a local cluster."),
+        click.option("--workers", default=2, show_default=True, type=click.IntRange(1, 512),
+                     help="Worker processes of the local Dask cluster."),
+        click.option("--partitions", default=None, type=click.IntRange(1, 1_000_000),
+                     help="Item partitions for the Dask engine (default: one per worker thread)."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
+
+
+def pop_engine(kwargs: dict, fmt: str) -> dict | None:
+    """The Dask settings, or None for the local engine (unused Dask options are errors)."""
+    engine = {k: kwargs.pop(k) for k in ("engine", "scheduler", "workers", "partitions")}
+    if engine["engine"] == "local":
+        for option in ("scheduler", "partitions"):
+            if engine[option] is not None:
+                raise InputError(f"--{option} needs --engine dask")
+        return None
+    if kwargs.get("layout") == "wide":
+        raise InputError("--engine dask reads the long layout only (one row per item and period)")
+    if fmt != "parquet":
+        raise InputError("--engine dask writes partitioned Parquet: add --format parquet")
+    return engine
+
+
+def run_on_dask(command: str, engine: dict, kwargs: dict, out_dir: Path, console: Console, **options):
+    """Run one command on Dask with the CLI's options; returns the engine's run record."""
+    try:
+        from .engine import run_distributed
+    except ImportError:
+        raise InputError("--engine dask needs the dask extra: pip install 'sparsedemand[dask]'") from None
+
+    columns = pop_columns(kwargs)
+    run = run_distributed(
+        command,
+        kwargs.pop("input_path"),
+        out_dir=out_dir,
+        scheduler=engine["scheduler"],
+        n_workers=engine["workers"],
+        partitions=engine["partitions"],
+        columns=columns,
+        frequency=kwargs.pop("frequency"),
+        net_returns=kwargs.pop("net_returns"),
+        **options,
+    )
+    console.say(run.summary.text())
+    return run
 
 
 # ------------------------------------------------------------------ classify
@@ -275,6 +336,7 @@ def pop_forecast_options(kwargs: dict) -> dict:
 @classify_options
 @horizon_option
 @forecast_options
+@engine_options
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
               help="Folder for forecasts and the audit table.")
 @click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
@@ -286,6 +348,13 @@ def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     copts = pop_classify_options(kwargs)
     horizon = pop_horizon(kwargs)
     fopts = pop_forecast_options(kwargs)
+    engine = pop_engine(kwargs, fmt)
+    if engine is not None:
+        run = run_on_dask("forecast", engine, kwargs, out_dir, console, horizon=horizon,
+                          classify_options=copts, **fopts)
+        click.echo(_format_summary(run.routing))
+        console.say(f"wrote {out_dir} ({run.partitions} partitions)")
+        return
     panel, _, source = load_input(kwargs, console)
     result = routed_forecast(panel, horizon, fopts, copts, console)
     with staged_output(out_dir) as stage:
@@ -351,6 +420,7 @@ def _routing_summary(audit):
               help="What happens to demand the simulated stock cannot serve.")
 @click.option("--weights", type=click.Choice(["volume", "value"]), default="volume", show_default=True,
               help="Weighting of the weighted scores (value = unit price x units).")
+@engine_options
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
               help="Folder for scores.csv and item_scores.csv.")
 @click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
@@ -377,6 +447,15 @@ def backtest_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     }
     if fopts.pop("selection") != "policy":
         raise InputError("--selection holdout is for forecast; the backtest scores the policy's router")
+    engine = pop_engine(kwargs, fmt)
+    if engine is not None:
+        extra = {k: bopts[k] for k in ("methods", "baseline", "lead_time", "review_period",
+                                        "service_level", "unmet", "weights")}
+        run = run_on_dask("backtest", engine, kwargs, out_dir, console, classify_options=copts,
+                          holdout=bopts["holdout"], origins=bopts["origins"], step=bopts["step"],
+                          backtest_options=extra, **fopts)
+        console.say(f"wrote {out_dir}; left out on Dask: {', '.join(run.not_combined) or 'nothing'}")
+        return
     panel, _, source = load_input(kwargs, console)
     from .route import load_overrides, load_policy
 
@@ -515,6 +594,7 @@ def compute_stock(result, opts: dict):
 @classify_options
 @forecast_options
 @stock_options
+@engine_options
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
               help="Folder for stock.csv (and the forecasts and audit behind it).")
 @click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
@@ -527,6 +607,12 @@ def stock_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     copts = pop_classify_options(kwargs)
     fopts = pop_forecast_options(kwargs)
     sopts = pop_stock_options(kwargs)
+    engine = pop_engine(kwargs, fmt)
+    if engine is not None:
+        run = run_on_dask("stock", engine, kwargs, out_dir, console, classify_options=copts,
+                          **fopts, **sopts)
+        click.echo(totals_text(pd.read_parquet(run.paths["stock"])))
+        return
     sopts["seed"] = fopts["seed"]
     panel, _, source = load_input(kwargs, console)
     # The forecast must cover the whole protection interval (lead time + review period).

@@ -769,8 +769,9 @@ def period_labels(periods: pd.Index) -> list:
     if isinstance(periods, pd.PeriodIndex):
         code = periods.freqstr
         if code.startswith("W"):
-            return [p.start_time.strftime("%Y-%m-%d") for p in periods]
-        return [str(p) for p in periods]
+            starts = periods.start_time.strftime("%Y-%m-%d")
+            return [None if pd.isna(s) else s for s in starts]
+        return [None if pd.isna(p) else str(p) for p in periods]
     return list(periods)
 
 

@@ -186,9 +186,9 @@ def load_run(run_dir: str | os.PathLike, *, history=None) -> RunOutputs:
 
 
 def _table_path(folder: Path, name: str) -> Path | None:
-    for suffix in (".csv", ".parquet"):
-        path = folder / f"{name}{suffix}"
-        if path.exists():
+    # a Dask run writes each table as a folder of Parquet parts
+    for path in (folder / f"{name}.csv", folder / f"{name}.parquet", folder / name):
+        if path.exists() and (path.is_file() or any(path.glob("*.parquet"))):
             return path
     return None
 
