@@ -63,6 +63,7 @@ items it is fitted with.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import dataclasses
 from io import StringIO
@@ -176,12 +177,16 @@ def _probe_fit(method: str, params: Mapping) -> None:
     _methods.fit(method, _PROBE, np.array([1]), None, horizon=1, **options)
 
 
-def _check_rule(rule: Rule, where: str, key_where=None) -> None:
+def _check_rule(rule: Rule, where: str, key_where=None, checked: set | None = None) -> None:
     """Fail early, naming ``where``, if a method or its parameters are unknown or bad.
 
     ``key_where(key)`` names the place of one parameter (its line or column);
     each parameter is checked on its own first so the message points at it.
+    Rules whose key is in ``checked`` passed before and are not probed again
+    (a long override file repeats a few rules); passing ones are added.
     """
+    if checked is not None and isinstance(rule.method, str) and rule.key() in checked:
+        return
     if not isinstance(rule.method, str) or rule.method not in _methods.METHODS:
         known = ", ".join(_methods.METHODS)
         raise InputError(f"{where}: unknown method {rule.method!r} (known: {known})")
@@ -198,6 +203,8 @@ def _check_rule(rule: Rule, where: str, key_where=None) -> None:
             raise InputError(f"{place}: {exc}") from None
         except (TypeError, ValueError) as exc:
             raise InputError(f"{place}: bad parameters for {rule.method}: {_first_line(exc)}") from None
+    if checked is not None:
+        checked.add(rule.key())
 
 
 def _first_line(exc: BaseException) -> str:
@@ -249,6 +256,13 @@ def _toml_lines(lines: list[str], pattern: str) -> tuple[int, dict[str, int]]:
     return first or 1, keys
 
 
+def _row_names() -> tuple[str, ...]:
+    """Every name a policy row may have: the patterns, the statuses and the router's own."""
+    from .classify import PATTERNS, STATUSES
+
+    return (*PATTERNS, *STATUSES, *ROUTING_STATUSES)
+
+
 def _section_line(lines: list[str], key: str) -> int:
     found = re.compile(rf'^\s*\[?\s*"?{re.escape(key)}"?\s*[\].=]')
     return next((n + 1 for n, line in enumerate(lines) if found.match(line)), 1)
@@ -267,8 +281,6 @@ def load_policy(path: str | os.PathLike, *, base: Mapping[str, Rule] | None = No
     >>> policy["lumpy"].method  # doctest: +SKIP
     'tsb'
     """
-    from .classify import PATTERNS, STATUSES
-
     name = str(path)
     text = _read_text(path, "policy file")
     lines = text.splitlines()
@@ -290,7 +302,7 @@ def load_policy(path: str | os.PathLike, *, base: Mapping[str, Rule] | None = No
     if not isinstance(rows, dict):
         line = _section_line(lines, "patterns")
         raise InputError(f"{name}, line {line}: 'patterns' must hold tables [patterns.NAME]")
-    known = (*PATTERNS, *STATUSES, *ROUTING_STATUSES)
+    known = _row_names()
     for pattern, row in rows.items():
         line, key_lines = _toml_lines(lines, pattern)
         where = f"{name}, line {line}"
@@ -341,6 +353,7 @@ def load_overrides(path: str | os.PathLike, *, item_column: str = "item") -> dic
     params_cols = [c for c in header if c not in (item_column, "method")]
     rules: dict[str, Rule] = {}
     lines: dict[str, int] = {}
+    checked: set = set()
     for line, cells in records[1:]:
         where = f"{name}, line {line}"
         if len(cells) != len(header):
@@ -356,7 +369,7 @@ def load_overrides(path: str | os.PathLike, *, item_column: str = "item") -> dic
             if rec[col]:
                 params[col] = _parse_value(rec[col], f"{where}, column {col!r}")
         rule = Rule(rec["method"], params, source=f"override file {name}, line {line}")
-        _check_rule(rule, f"{where}, column 'method'", lambda key: f"{where}, column {key!r}")
+        _check_rule(rule, f"{where}, column 'method'", lambda key: f"{where}, column {key!r}", checked)
         rules[item] = rule
         lines[item] = line
     return rules
@@ -394,11 +407,12 @@ def _parse_value(text: str, where: str):
 def _caller_rules(rules: Mapping, what: str, label) -> dict:
     """Check rules given from Python; name their origin in the audit trail."""
     out = {}
+    checked: set = set()
     for key, rule in rules.items():
         where = f"{what} {label(key)}"
         if not isinstance(rule, Rule):
             raise InputError(f"{where}: expected a Rule(method, params), got {type(rule).__name__}")
-        _check_rule(rule, where)
+        _check_rule(rule, where, checked=checked)
         if rule.source == "default policy" and not (what == "policy row" and DEFAULT_POLICY.get(key) == rule):
             rule = dataclasses.replace(rule, source=f"{where} given by the caller")
         out[key] = rule
@@ -407,15 +421,13 @@ def _caller_rules(rules: Mapping, what: str, label) -> dict:
 
 def _resolve_policy(policy) -> dict[str, Rule]:
     """The full routing table: the defaults with the given rows (a mapping or a TOML file) over them."""
-    from .classify import PATTERNS, STATUSES
-
     if policy is None:
         return dict(DEFAULT_POLICY)
     if isinstance(policy, (str, os.PathLike)):
         return load_policy(policy)
     if not isinstance(policy, Mapping):
         raise InputError(f"policy must be a mapping of pattern to Rule or a TOML file, got {type(policy).__name__}")
-    known = (*PATTERNS, *STATUSES, *ROUTING_STATUSES)
+    known = _row_names()
     for pattern in policy:
         if pattern not in known:
             raise InputError(f"policy: unknown pattern {pattern!r} (known: {', '.join(known)})")
@@ -472,10 +484,12 @@ def assign_methods(
             raise InputError(f"overrides: item {index[pos]!r} is overridden twice")
         by_pos[int(pos)] = rule
     rules = []
-    for pos, pattern in enumerate(routing_keys(classes, changed)):
+    keys = routing_keys(classes, changed)
+    for pos, (key, pattern) in enumerate(zip(keys, classes["pattern"])):
         rule = by_pos.get(pos)
         if rule is None:
-            rule = policy.get(pattern)
+            # a table without a rate-change row keeps such items on their pattern's row
+            rule = policy.get(key) or policy.get(pattern)
             if rule is None:
                 raise InputError(f"the routing policy has no row for pattern {pattern!r}")
         rules.append(rule)
@@ -822,7 +836,7 @@ def forecast(
     fallback = np.zeros(n, dtype=bool)
     fitted_groups = []
     work = list(groups.values())
-    iterator = progress(work, label="forecasting") if progress else _null_ctx(work)
+    iterator = progress(work, label="forecasting") if progress else contextlib.nullcontext(work)
     with iterator as bar:
         for members in bar:
             rows = np.asarray(members)
@@ -853,17 +867,6 @@ def forecast(
         groups=fitted_groups,
         selection=selection_table,
     )
-
-
-class _null_ctx:
-    def __init__(self, it) -> None:
-        self.it = it
-
-    def __enter__(self):
-        return self.it
-
-    def __exit__(self, *exc) -> None:
-        return None
 
 
 def _check_forecast_options(horizon, levels, cost, selection, holdout, panel) -> tuple[float, ...]:
@@ -898,11 +901,11 @@ def _quantile_table(panel, periods, qs, levels) -> pd.DataFrame:
         {
             "item": np.repeat(panel.items.to_numpy(), horizon),
             "step": np.tile(np.arange(1, horizon + 1), n),
-            "period": np.tile(np.asarray(periods), n),
+            # positions, not Period objects: taking from the index keeps its dtype without
+            # parsing one object per row
+            "period": periods[np.tile(np.arange(horizon), n)],
         }
     )
-    if isinstance(periods, pd.PeriodIndex):
-        table["period"] = pd.PeriodIndex(table["period"], freq=periods.freq)
     for k, level in enumerate(levels):
         table[quantile_column(level)] = qs[:, :, k].reshape(-1)
     return table
