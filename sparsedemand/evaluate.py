@@ -95,6 +95,7 @@ from .route import (
     assign_methods,
     load_overrides,
     load_policy,
+    quantile_column,
 )
 from .simulate import simulate_order_up_to
 from .stock import _label_seeds
@@ -160,13 +161,9 @@ def metric_names(levels: Sequence[float] = DEFAULT_LEVELS) -> list[str]:
     >>> metric_names([0.5, 0.9])[:8]
     ['mase', 'rmsse', 'mae', 'scaled_bias', 'pis', 'shortages', 'spl_q50', 'spl_q90']
     """
-    tags = [_tag(level) for level in levels]
+    tags = [quantile_column(level) for level in levels]
     return [*_POINT, *(f"spl_{t}" for t in tags), *(f"coverage_{t}" for t in tags), *_STOCK,
             "excluded_periods"]
-
-
-def _tag(level: float) -> str:
-    return "q" + f"{float(level) * 100:.6g}"
 
 
 def _whole(name: str, value, *, minimum: int) -> int:
@@ -257,7 +254,7 @@ class BacktestResult:
         if not levels:
             return None
         nearest = min(levels, key=lambda q: (abs(q - 0.9), -q))
-        return f"coverage_{_tag(nearest)}"
+        return f"coverage_{quantile_column(nearest)}"
 
     def router_rank(self, metric: str = _MAIN) -> tuple[int, int]:
         """(rank, methods ranked) of the router on a lower-is-better metric over all items."""
@@ -306,6 +303,13 @@ class BacktestResult:
                          "* marks the best value in each column")
         else:
             lines.append("* marks the best value in each column (the router was not run)")
+        excluded = self.scores[(self.scores["metric"] == "excluded_periods") & (self.scores["pattern"] == "all")]
+        if len(excluded):
+            left_out = float(excluded["value"].iloc[0])
+            cells_scored = float(excluded["count"].iloc[0]) * self.settings.get("holdout", 0)
+            share = left_out / cells_scored if cells_scored else 0.0
+            lines.append(f"out-of-stock periods left out of every score: {left_out:,.0f} of "
+                         f"{cells_scored:,.0f} item-periods ({share:.1%})")
         origins = self.settings.get("origins", 1)
         lines.append(f"{origins} origin{'s' if origins != 1 else ''}, holdout "
                      f"{self.settings.get('holdout')} periods, lead time {self.settings.get('lead_time')}, "
@@ -496,9 +500,9 @@ def _item_metrics(fc: OriginForecast, ctx: _Origin, baseline: OriginForecast | N
     spl = scaled_pinball(ctx.scale, y, q, levels=ctx.levels, available=ok)
     cov = coverage(None, y, q, levels=ctx.levels, available=ok)
     for j, level in enumerate(ctx.levels):
-        out[f"spl_{_tag(level)}"] = spl[:, j]
+        out[f"spl_{quantile_column(level)}"] = spl[:, j]
     for j, level in enumerate(ctx.levels):
-        out[f"coverage_{_tag(level)}"] = cov[:, j]
+        out[f"coverage_{quantile_column(level)}"] = cov[:, j]
     order_up_to = fc.order_up_to[:, 0] if fc.order_up_to.shape[1] == 1 else fc.order_up_to
     sim = simulate_order_up_to(y, order_up_to, review=ctx.review, lead_time=ctx.lead_time, available=ok,
                                unmet=ctx.unmet)
@@ -583,7 +587,8 @@ def _check_levels(levels) -> np.ndarray:
         raise InputError(f"levels must be numbers between 0 and 1, got {levels!r}") from None
     if lv.size == 0 or not np.all((lv > 0) & (lv < 1)):
         raise InputError(f"levels must lie strictly between 0 and 1, got {list(np.atleast_1d(levels))}")
-    if np.unique(lv).size != lv.size:
+    names = [quantile_column(q) for q in lv]
+    if len(set(names)) != len(names):
         raise InputError(f"levels must not repeat, got {lv.tolist()}")
     return lv
 

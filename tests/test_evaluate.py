@@ -370,3 +370,20 @@ def test_bad_options_give_one_line_errors(options, message):
 def test_value_weights_need_unit_prices():
     with pytest.raises(InputError, match="unit_price"):
         backtest(make_panel(np.ones((2, 40))), holdout=5, weights="value")
+
+
+def test_progress_sees_every_origin_and_method():
+    from contextlib import nullcontext
+
+    seen = []
+
+    def progress(iterable, *, label):
+        seen.append((label, list(iterable)))
+        return nullcontext(seen[-1][1])
+
+    backtest(make_panel(np.tile([0.0, 2.0, 0.0, 1.0], (3, 10))), holdout=4, origins=2, methods=["sba"],
+             progress=progress)
+    label, work = seen[0]
+    assert label == "backtest"
+    assert work == [(0, "mean_since_first"), (0, "sba"), (0, ROUTER), (1, "mean_since_first"), (1, "sba"),
+                    (1, ROUTER)]
