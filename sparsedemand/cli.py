@@ -287,6 +287,8 @@ def _parse_levels(text: str) -> tuple[float, ...]:
         raise InputError(f"--quantiles must be numbers separated by commas, got {text!r}") from None
     if not levels or any(not 0 < q < 1 for q in levels):
         raise InputError(f"--quantiles must lie strictly between 0 and 1, got {text!r}")
+    if len(set(levels)) < len(levels):
+        raise InputError(f"--quantiles lists a level twice: {text!r}")
     return levels
 
 
@@ -321,9 +323,13 @@ def pop_horizon(kwargs: dict) -> int:
 
 
 def pop_forecast_options(kwargs: dict) -> dict:
+    from .route import load_policy
+
+    policy = kwargs.pop("policy_file")
     return {
         "levels": _parse_levels(kwargs.pop("levels")),
-        "policy": kwargs.pop("policy_file"),
+        # the policy is checked before the (possibly large) input is read
+        "policy": load_policy(policy) if policy is not None else None,
         "overrides": kwargs.pop("override_file"),
         "cost": kwargs.pop("cost"),
         "selection": kwargs.pop("selection"),
@@ -371,14 +377,13 @@ def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
 
 def routed_forecast(panel, horizon: int, fopts: dict, copts: dict, console: Console):
     """The router's forecast with the CLI's options (policy and override files read here)."""
-    from .route import forecast, load_overrides, load_policy
+    from .route import forecast, load_overrides
 
     options = dict(fopts)
-    policy, overrides = options.pop("policy"), options.pop("overrides")
+    overrides = options.pop("overrides")
     return forecast(
         panel,
         horizon,
-        policy=load_policy(policy) if policy is not None else None,
         overrides=load_overrides(overrides) if overrides is not None else None,
         classify_options=copts,
         progress=console.progress,
@@ -457,12 +462,11 @@ def backtest_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
         console.say(f"wrote {out_dir}; left out on Dask: {', '.join(run.not_combined) or 'nothing'}")
         return
     panel, _, source = load_input(kwargs, console)
-    from .route import load_overrides, load_policy
+    from .route import load_overrides
 
-    policy, overrides = fopts.pop("policy"), fopts.pop("overrides")
+    overrides = fopts.pop("overrides")
     result = backtest(
         panel,
-        policy=load_policy(policy) if policy is not None else None,
         overrides=load_overrides(overrides) if overrides is not None else None,
         classify_options=copts,
         progress=console.progress,
@@ -482,11 +486,11 @@ def backtest_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
 
 def stock_options(func):
     options = [
-        click.option("--lead-time", default=None, type=int,
+        click.option("--lead-time", default=None, type=click.IntRange(min=0),
                      help="Replenishment lead time in periods (same for every item)."),
         click.option("--lead-time-column", default=None,
                      help="Input column with each item's lead time in periods (constant per item)."),
-        click.option("--review-period", default=1, show_default=True, type=int,
+        click.option("--review-period", default=1, show_default=True, type=click.IntRange(min=1),
                      help="Periods between reviews of the order-up-to policy."),
         click.option("--service-level", default=None, type=float,
                      help="Target cycle service level (probability of no stock-out per cycle)."),

@@ -269,7 +269,6 @@ def test_a_failure_while_writing_leaves_the_previous_run_untouched(demo_csv, tmp
     assert leftovers(tmp_path) == []
 
 
-@pytest.mark.xfail(strict=True, reason="the stock command checks --lead-time only through the horizon it implies")
 def test_negative_lead_time_names_the_option(demo_csv, tmp_path, capsys):
     code, _, err = run(capsys, "stock", demo_csv, "--lead-time", "-1", "--out", tmp_path / "out")
     check_one_line_error(code, err, ["--lead-time"])
