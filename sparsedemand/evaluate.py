@@ -88,14 +88,15 @@ from .metrics import (
 )
 from .panel import DemandPanel, as_panel
 from .route import (
+    CHANGE_LEVEL,
     DEFAULT_LEVELS,
-    DEFAULT_POLICY,
     Rule,
+    _resolve_policy,
     _routed_options,
     assign_methods,
     load_overrides,
-    load_policy,
     quantile_column,
+    rate_change,
 )
 from .simulate import simulate_order_up_to
 from .stock import _label_seeds
@@ -751,6 +752,7 @@ def backtest(
     classify_options: Mapping[str, object] | None = None,
     weights: str | Sequence[str] = "volume",
     group_levels: Sequence[str] = GROUP_LEVELS,
+    change_level: float | None = CHANGE_LEVEL,
     progress: Callable | None = None,
     keep_forecasts: bool = False,
 ) -> BacktestResult:
@@ -803,6 +805,9 @@ def backtest(
     group_levels : sequence of str, default ("item", "location", "category", "total")
         Levels of ``weighted_rmsse``; a level the panel has no attribute for
         is skipped.
+    change_level : float or None, default :data:`sparsedemand.route.CHANGE_LEVEL`
+        Significance level of the router's rate-change test at each origin,
+        as for :func:`sparsedemand.route.forecast`; None turns it off.
     progress : callable, optional
         ``progress(iterable, label=...)`` returning a context manager that
         yields the iterable (a progress bar).
@@ -845,10 +850,7 @@ def backtest(
     if unknown_levels:
         raise InputError(f"group_levels must be level names, got {unknown_levels[0]!r}")
     plan = _method_plan(methods, method_options, baseline, panel, cost)
-    if isinstance(policy, (str, os.PathLike)):
-        policy = load_policy(policy)
-    elif policy is not None:
-        policy = {**DEFAULT_POLICY, **policy}  # the rows given replace default rows, the others stay
+    policy = _resolve_policy(policy)  # the rows given replace default rows, the others stay
     if isinstance(overrides, (str, os.PathLike)):
         overrides = load_overrides(overrides)
     groups = _group_labels(panel, group_levels)
@@ -871,7 +873,7 @@ def backtest(
                 current = k
                 ctx, rules, kept = _start_origin(panel, int(cuts[k]), horizon, mask, lv, service, lead, review,
                                                  unmet, classify_options, kinds, price, groups, seeds,
-                                                 policy, overrides, include_router)
+                                                 policy, overrides, include_router, change_level)
                 pattern_table[k + 1] = ctx.classes["pattern"].to_numpy()
                 needed = {r.method for r in rules} | {_FALLBACK} if include_router else set()
                 base = None
@@ -911,7 +913,7 @@ def backtest(
 
 
 def _start_origin(panel, cut, horizon, mask, lv, service, lead, review, unmet, classify_options, kinds, price,
-                  groups, seeds, policy, overrides, include_router):
+                  groups, seeds, policy, overrides, include_router, change_level):
     """Cut the history at ``cut`` and prepare what every method is scored against."""
     train = panel.head(cut)
     classes = _classify(train, **dict(classify_options or {}))
@@ -938,7 +940,13 @@ def _start_origin(panel, cut, horizon, mask, lv, service, lead, review, unmet, c
     w = ctx.weights[kinds[0]]
     if groups and (w > 0).any():
         ctx.hierarchy = _hierarchy_levels(train, groups, w)
-    rules = assign_methods(classes, policy=policy, overrides=overrides) if include_router else []
+    rules = []
+    if include_router:
+        # the same routing as route.forecast at this origin, rate-change status included
+        changed = None
+        if change_level is not None:
+            changed = rate_change(train, classes, level=change_level)["changed"].to_numpy()
+        rules = assign_methods(classes, policy=policy, overrides=overrides, changed=changed)
     return ctx, rules, {}
 
 

@@ -12,7 +12,7 @@ from sparsedemand.errors import InputError
 from sparsedemand.evaluate import ROUTER, backtest, metric_names, origin_cuts
 from sparsedemand.metrics import hierarchical_rmsse, item_weights
 from sparsedemand.panel import DemandPanel
-from sparsedemand.route import forecast
+from sparsedemand.route import forecast, rate_change
 
 
 def make_panel(values, *, available=None, attributes=None, items=None) -> DemandPanel:
@@ -306,19 +306,23 @@ def test_router_matches_the_routed_forecast_at_each_origin():
     values[54] = 0.0  # never sold
     values[55] = 0.0
     values[55, 120] = 3.0  # a single demand: too short
+    values[40:45, :60] = values[40:45, :60] * (np.arange(60) % 9 == 0)  # rare, then frequent:
+    values[40:45, 60:] = np.maximum(values[40:45, 60:], 2.0)            # a change in demand rate
     panel = DemandPanel(values, items=base.items, periods=base.periods, available=base.available,
                         attributes=base.attributes)
     res = backtest(panel, holdout=14, origins=2, methods=["sba", "ses", "tsb"], keep_forecasts=True)
-    seen = set()
+    seen, changed = set(), 0
     for k, cut in enumerate(res.origins["train_periods"], start=1):
         routed = forecast(panel.head(int(cut)), 14)
         seen |= set(routed.audit["method"])
+        changed += int(rate_change(panel.head(int(cut)), routed.classes)["changed"].sum())
         mine = res.forecasts[(k, ROUTER)]
         assert np.allclose(mine.mean, routed.point.to_numpy(), rtol=1e-12, atol=1e-12)
         q = routed.quantiles[[f"q{x}" for x in (50, 80, 90, 95)]].to_numpy().reshape(60, 14, 4)
         assert np.array_equal(np.broadcast_to(mine.quantiles, q.shape), q)
         assert res.patterns[k].tolist() == routed.classes["pattern"].tolist()
     assert seen >= {"sba", "tsb", "zeros", "mean_since_first"}
+    assert changed > 0  # the rate-change row was exercised
 
 
 def test_router_with_a_fixed_parameter_policy_is_fitted_on_its_own():
