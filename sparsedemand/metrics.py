@@ -321,9 +321,8 @@ def naive_scale(insample: npt.ArrayLike, *, insample_available: npt.ArrayLike | 
     The MASE scale is the in-sample mean absolute one-step naive difference
     (Hyndman & Koehler 2006, "Another look at measures of forecast accuracy",
     IJF 22:679-688); the RMSSE scale is the mean squared one-step naive
-    difference, both taken from the item's first positive demand on, as in the
-    M5 competition (Makridakis, Spiliotis & Assimakopoulos 2022, IJF
-    38:1346-1364). A difference is used only when both of its periods are
+    difference, both taken from the item's first positive demand on, as in
+    Makridakis, Spiliotis & Assimakopoulos (2022, IJF 38:1346-1364). A difference is used only when both of its periods are
     available; NaN in ``insample`` counts as unavailable. The first demand is
     the first positive recorded value, flagged or not (as
     :attr:`sparsedemand.panel.DemandPanel.start`).
@@ -677,7 +676,7 @@ def scaled_pinball(
     available: npt.ArrayLike | None = None,
     insample_available: npt.ArrayLike | None = None,
 ) -> Score:
-    """Scaled pinball loss per quantile level, the SPL of the M5 uncertainty competition.
+    """Scaled pinball loss (SPL) per quantile level.
 
     Mean pinball loss (Koenker & Bassett 1978) divided by the in-sample mean
     absolute one-step naive difference from the first demand on (Makridakis,
@@ -794,7 +793,7 @@ def item_weights(
 
     Volume is the units sold over the last ``last`` periods of ``history``;
     with ``unit_price`` (one per item) it is the value, price x units, the
-    weighting of the M5 competition (Makridakis et al. 2022, IJF 38:1346-1364).
+    weighting of Makridakis et al. (2022, IJF 38:1346-1364).
     Unavailable or NaN periods add nothing. The weights sum to 1.
 
     Examples
@@ -971,8 +970,8 @@ def hierarchical_rmsse(
     histories of the members are summed per group, each group is scored with
     RMSSE on its own aggregated history, and the groups are averaged with
     weights equal to their members' share of ``weights``; the final score is the
-    plain mean over levels. This is the WRMSSE of the M5 competition
-    (Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364), with
+    plain mean over levels. This is the weighted RMSSE of Makridakis,
+    Spiliotis & Assimakopoulos (2022, IJF 38:1346-1364), with
     stock-outs handled as follows:
 
     - an evaluation period of a group sums the actual and the forecast of the
@@ -982,7 +981,7 @@ def hierarchical_rmsse(
       the members available in both periods, and is dropped when there is none;
     - the group's history starts at its earliest member's first demand.
 
-    Without masks this is exactly the aggregate-then-score of the M5 rules.
+    Without masks this is exactly the aggregate-then-score of that paper's rules.
 
     Parameters
     ----------

@@ -198,7 +198,7 @@ def test_pattern_means_and_weighted_means_by_hand():
         # excluded periods are a count: the total over items
         assert res.value(method, "excluded_periods") == 3
         # weights: units (or units x unit price) over the last 10 periods before the origin
-        # (the M5 weighting, Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364)
+        # (the weighting of Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364)
         before = panel.values[:, 40:50] * panel.mask()[:, 40:50]
         for kind, w in (("volume", before.sum(axis=1)),
                         ("value", before.sum(axis=1) * np.array([1.0, 2.0, 10.0, 4.0]))):

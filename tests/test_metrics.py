@@ -293,7 +293,7 @@ H_GROUPS = {"item": ["A", "B"], "total": "all"}
 
 
 def test_hierarchical_rmsse_by_hand():
-    # M5 weighted RMSSE (Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364): per-level weighted
+    # Weighted RMSSE (Makridakis, Spiliotis & Assimakopoulos 2022, IJF 38:1346-1364): per-level weighted
     # mean, then the plain mean over levels.
     res = M.hierarchical_rmsse(H_INSAMPLE, H_ACTUAL, H_FORECAST, H_GROUPS, weights=[0.75, 0.25])
     item_level = 0.75 * math.sqrt(1 / 2.5) + 0.25 * math.sqrt(0.5 / (1 / 3))
@@ -324,7 +324,7 @@ def test_hierarchical_rmsse_with_stockouts_by_hand():
 
 
 def test_hierarchical_total_equals_scoring_the_summed_series():
-    # Without stock-outs, the total level is plain RMSSE of the aggregated series (M5 rules).
+    # Without stock-outs, the total level is plain RMSSE of the aggregated series (Makridakis et al. 2022).
     rng = np.random.default_rng(5)
     x = rng.poisson(0.7, size=(6, 40)).astype(float)
     x[:, :3] = 0.0
