@@ -218,6 +218,36 @@ class _Sampler(threading.Thread):
             self.peak = max(self.peak, _status_kb("VmRSS"))
 
 
+class MemoryGuard(threading.Thread):
+    """Stop the whole run, children included, before the machine runs out of memory.
+
+    The machine is shared: a stage that needs more memory than there is would otherwise
+    bring the kernel's OOM killer down on whatever else is running.
+    """
+
+    def __init__(self, floor_gib: float = 1.5) -> None:
+        super().__init__(daemon=True)
+        self.floor_kb = floor_gib * 2**20
+        self.stage = "start"
+        self.children: list[subprocess.Popen] = []
+
+    def run(self) -> None:
+        while True:
+            available = read_field("/proc/meminfo", "MemAvailable")
+            if available is not None and int(available.split()[0]) < self.floor_kb:
+                for child in self.children:
+                    if child.poll() is None:
+                        child.kill()
+                print(f"\nstopped: less than {self.floor_kb / 2**20:.1f} GiB of memory left during "
+                      f"'{self.stage}' (peak RSS of this process {_status_kb('VmHWM') / 2**20:.1f} GiB)",
+                      file=sys.stderr, flush=True)
+                os._exit(3)
+            time.sleep(0.25)
+
+
+GUARD = MemoryGuard()
+
+
 MEMORY_METHOD = (
     "peak resident set size of the process (VmHWM, reset through /proc/self/clear_refs just "
     "before the call) minus the resident set just before it, after a garbage collection and "
@@ -673,6 +703,7 @@ def _timed_child(path: Path, out_dir: Path) -> dict:
     with tempfile.TemporaryFile("w+") as out, tempfile.TemporaryFile("w+") as err:
         t0 = time.perf_counter()
         proc = subprocess.Popen(cmd, stdout=out, stderr=err, env=env)
+        GUARD.children.append(proc)
         _, status, usage = os.wait4(proc.pid, 0)
         wall = time.perf_counter() - t0
         proc.returncode = os.waitstatus_to_exitcode(status)
@@ -768,7 +799,9 @@ def profile(stage: str, spec: PanelSpec, path: Path, items: int | None) -> dict:
                "--file", str(path), "--seed", str(spec.seed)]
         if items is not None:
             cmd += ["--items", str(items)]
-        done = subprocess.run(cmd, capture_output=True, text=True)
+        child = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+        GUARD.children.append(child)
+        done = subprocess.CompletedProcess(cmd, 0, "", child.communicate()[1])
         if not raw.exists():
             return {"error": f"py-spy failed: {(done.stderr.strip().splitlines() or ['?'])[-1]}"}
         return summarise_stacks(raw.read_text())
@@ -1037,7 +1070,10 @@ def main(argv: list[str] | None = None) -> None:
     specs = QUICK if args.quick else FULL
     loads = [os.getloadavg()[0]]
 
+    GUARD.start()
+
     def say(text: str) -> None:
+        GUARD.stage = text
         loads.append(os.getloadavg()[0])
         print(f"{time.strftime('%H:%M:%S')} (load {loads[-1]:.2f}) {text}", file=sys.stderr, flush=True)
 
