@@ -73,7 +73,6 @@ def _kind_weights(category: str) -> dict[str, float]:
 
 def _simulate_series(rng: np.random.Generator, kind: str, days: int, weekday: np.ndarray):
     """Daily demand and stock-out flags for one series; returns (demand, in_stock, introduced)."""
-    t = np.arange(days)
     level = np.ones(days)
     if rng.random() < 0.2:  # level shift
         at = rng.integers(days // 4, 3 * days // 4)

@@ -66,13 +66,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from numba import njit
 
 from . import methods as _methods
 from .classify import PATTERNS, STATUSES
 from .classify import classify as _classify
 from .errors import InputError
-from .methods.distributions import demand_pmfs
+from .methods.distributions import demand_pmfs, ragged_quantiles
 from .metrics import (
     coverage,
     mae,
@@ -323,38 +322,6 @@ class BacktestResult:
         return {"scores": self.scores, "item_scores": self.item_scores}
 
 
-# --------------------------------------------------------------------------- quantiles from PMFs
-@njit(cache=True)
-def _ragged_quantiles(flat, indptr, levels, slack):
-    """Smallest k with cumulative probability >= level - slack, for each PMF row and level."""
-    n = indptr.shape[0] - 1
-    out = np.empty((n, levels.shape[0]), dtype=np.int64)
-    for i in range(n):
-        lo = indptr[i]
-        hi = indptr[i + 1]
-        for j in range(levels.shape[0]):
-            target = levels[j] - slack
-            c = 0.0
-            k = hi - lo - 1  # the last cell when the level is never reached
-            for t in range(lo, hi):
-                c += flat[t]
-                if c >= target:
-                    k = t - lo
-                    break
-            out[i, j] = k
-    return out
-
-
-def _row_quantiles(rows: list, levels: np.ndarray) -> np.ndarray:
-    """:func:`pmf_quantiles` of ragged PMF rows without padding them to one width."""
-    lengths = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
-    indptr = np.zeros(len(rows) + 1, dtype=np.int64)
-    np.cumsum(lengths, out=indptr[1:])
-    flat = np.concatenate(rows) if rows else np.zeros(0)
-    # the same slack as pmf_quantiles, so both agree cell for cell
-    return _ragged_quantiles(np.ascontiguousarray(flat, dtype=np.float64), indptr, levels, 1e-12)
-
-
 # --------------------------------------------------------------------------- one origin
 @dataclass
 class _Origin:
@@ -431,7 +398,7 @@ def _pmf_levels(kind, params, mean, rows, ctx: _Origin, periods_pairs) -> list[n
         kind, params, mean, periods=[p for p, _ in periods_pairs], values=train.values, start=train.start,
         available=train.available, history_rows=rows, seed=ctx.seeds[rows], ragged=True,
     )
-    return [_row_quantiles(r, lv) for r, (_, lv) in zip(ragged, periods_pairs)]
+    return [ragged_quantiles(r, lv) for r, (_, lv) in zip(ragged, periods_pairs)]
 
 
 def _predictive(fitted, rows: np.ndarray, ctx: _Origin) -> OriginForecast:

@@ -81,7 +81,7 @@ from numba import njit
 from . import methods as _methods
 from .classify import classify as _classify
 from .errors import InputError
-from .methods.distributions import demand_pmf, pmf_quantiles
+from .methods.distributions import demand_pmfs, ragged_quantiles
 from .panel import DemandPanel, as_panel
 
 __all__ = [
@@ -708,18 +708,21 @@ def _quantiles_for(panel, rows, fitted, levels, seed) -> np.ndarray:
     steps = [0] if flat else range(horizon)
     seeds = _label_seeds(panel.items[rows], seed)
     for step in steps:
-        pmf = demand_pmf(
+        # ragged rows, each as long as its own item needs: one high-volume item no longer
+        # pads every row of its group to its width
+        pmf_rows = demand_pmfs(
             fitted.distribution,
             fitted.dist_params,
             fitted.mean[:, step],
-            periods=1,
+            periods=[1],
             values=panel.values,
             start=panel.start,
             available=panel.available,
             history_rows=rows,
             seed=seeds,
-        )
-        q = pmf_quantiles(pmf, levels)
+            ragged=True,
+        )[0]
+        q = ragged_quantiles(pmf_rows, levels)
         if flat:
             out[:] = q[:, None, :]
         else:
@@ -899,7 +902,7 @@ def _quantile_table(panel, periods, qs, levels) -> pd.DataFrame:
     n, horizon = qs.shape[:2]
     table = pd.DataFrame(
         {
-            "item": np.repeat(panel.items.to_numpy(), horizon),
+            "item": panel.items.repeat(horizon),  # keeps the labels' dtype: no object per row
             "step": np.tile(np.arange(1, horizon + 1), n),
             # positions, not Period objects: taking from the index keeps its dtype without
             # parsing one object per row

@@ -92,6 +92,7 @@ __all__ = [
     "size_blocks",
     "pad_rows",
     "pmf_quantiles",
+    "ragged_quantiles",
     "pmf_cdf",
     "pmf_mean",
     "pmf_var",
@@ -1082,6 +1083,55 @@ def pmf_quantiles(pmf, levels) -> np.ndarray:
         hit = cdf >= level - _LEVEL_SLACK
         out[:, j] = np.where(hit.any(axis=1), hit.argmax(axis=1), cdf.shape[1] - 1)
     return out
+
+
+
+@njit(cache=True)
+def _ragged_quantile_kernel(flat, indptr, levels, slack):
+    """Smallest k with cumulative probability >= level - slack, for each PMF row and level."""
+    n = indptr.shape[0] - 1
+    out = np.empty((n, levels.shape[0]), dtype=np.int64)
+    for i in range(n):
+        lo = indptr[i]
+        hi = indptr[i + 1]
+        for j in range(levels.shape[0]):
+            target = levels[j] - slack
+            c = 0.0
+            k = hi - lo - 1  # the last cell when the level is never reached
+            for t in range(lo, hi):
+                c += flat[t]
+                if c >= target:
+                    k = t - lo
+                    break
+            out[i, j] = k
+    return out
+
+
+def ragged_quantiles(rows: Sequence, levels) -> np.ndarray:
+    """:func:`pmf_quantiles` of PMF rows of different lengths, without padding them to one width.
+
+    Parameters
+    ----------
+    rows : sequence of 1-D arrays
+        One PMF per item (as from ``demand_pmfs(..., ragged=True)``).
+    levels : sequence of float
+
+    Returns
+    -------
+    ndarray of int64, shape (n_items, n_levels)
+
+    Examples
+    --------
+    >>> ragged_quantiles([np.array([0.5, 0.5]), np.array([0.1, 0.1, 0.8])], [0.5, 0.9]).tolist()
+    [[0, 1], [2, 2]]
+    """
+    levels = np.asarray(levels, dtype=np.float64)
+    lengths = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
+    indptr = np.zeros(len(rows) + 1, dtype=np.int64)
+    np.cumsum(lengths, out=indptr[1:])
+    flat = np.concatenate(rows) if len(rows) else np.zeros(0)
+    # the same slack as pmf_quantiles, so both agree cell for cell
+    return _ragged_quantile_kernel(np.ascontiguousarray(flat, dtype=np.float64), indptr, levels, _LEVEL_SLACK)
 
 
 def pmf_mean(pmf) -> np.ndarray:
