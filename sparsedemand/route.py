@@ -63,6 +63,8 @@ items it is fitted with.
 
 from __future__ import annotations
 
+import math
+
 import contextlib
 import csv
 import dataclasses
@@ -541,8 +543,6 @@ def rate_change(panel, classes: pd.DataFrame, *, level: float = CHANGE_LEVEL) ->
     >>> table[["recent_demands", "recent_periods", "changed"]].values.tolist()
     [[2, 12, True], [6, 12, False]]
     """
-    from scipy.stats import hypergeom
-
     if not (isinstance(level, (int, float)) and 0.0 < level < 1.0):
         raise InputError(f"change level must lie strictly between 0 and 1, got {level!r}")
     panel = as_panel(panel)
@@ -555,9 +555,8 @@ def rate_change(panel, classes: pd.DataFrame, *, level: float = CHANGE_LEVEL) ->
     n_recent, d_recent = _recent_counts(panel.values, mask, has_mask,
                                         np.ascontiguousarray(panel.start, dtype=np.int64),
                                         np.where(testable, window, 0).astype(np.int64))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        low = hypergeom.cdf(d_recent, total, demands, n_recent)
-        high = hypergeom.sf(d_recent - 1, total, demands, n_recent)
+    low, high = _hypergeom_tails(d_recent.astype(np.int64), total, demands, n_recent.astype(np.int64),
+                                 testable)
     p = np.where(testable, np.minimum(1.0, 2.0 * np.minimum(low, high)), np.nan)
     return pd.DataFrame(
         {
@@ -573,6 +572,48 @@ def rate_change(panel, classes: pd.DataFrame, *, level: float = CHANGE_LEVEL) ->
 
 
 _MIN_SPLIT = 8
+
+
+@njit(cache=True)
+def _hypergeom_tails(x, population, successes, draws, use):
+    """P(X <= x) and P(X >= x) for X ~ Hypergeometric(population, successes, draws), per item.
+
+    Exact sums over the support: the terms are built outward from the mode by
+    the ratio of neighbouring probabilities (so none underflows before it is
+    negligible) and normalised by their total. Items with ``use`` False get NaN.
+    """
+    n_items = x.shape[0]
+    low = np.full(n_items, np.nan)
+    high = np.full(n_items, np.nan)
+    for i in range(n_items):
+        if not use[i]:
+            continue
+        big_n, k, n, xi = population[i], successes[i], draws[i], x[i]
+        lo = max(0, n + k - big_n)
+        hi = min(n, k)
+        mode = min(hi, max(lo, ((n + 1) * (k + 1)) // (big_n + 2)))
+        total = 1.0  # the mode's term, relative
+        le = 1.0 if mode <= xi else 0.0
+        ge = 1.0 if mode >= xi else 0.0
+        term = 1.0
+        for j in range(mode, lo, -1):  # term(j - 1) from term(j)
+            term *= j * (big_n - k - n + j) / ((k - j + 1) * (n - j + 1))
+            total += term
+            if j - 1 <= xi:
+                le += term
+            if j - 1 >= xi:
+                ge += term
+        term = 1.0
+        for j in range(mode, hi):  # term(j + 1) from term(j)
+            term *= (k - j) * (n - j) / ((j + 1) * (big_n - k - n + j + 1))
+            total += term
+            if j + 1 <= xi:
+                le += term
+            if j + 1 >= xi:
+                ge += term
+        low[i] = min(1.0, le / total)
+        high[i] = min(1.0, ge / total)
+    return low, high
 
 
 @njit(cache=True)

@@ -524,3 +524,21 @@ def test_routed_forecast_beats_naive_baselines_and_stays_near_the_best_single_me
     best = min(singles, key=singles.get)
     tolerance = 1.15
     assert got <= tolerance * singles[best], (got, best, singles[best])
+
+
+def test_hypergeometric_tails_match_scipy():
+    # The rate-change test's exact tails against scipy.stats.hypergeom (general-purpose reference).
+    from scipy.stats import hypergeom
+
+    from sparsedemand.route import _hypergeom_tails
+
+    rng = np.random.default_rng(3)
+    population = rng.integers(16, 3000, 2000)
+    successes = (rng.random(2000) * population).astype(np.int64)
+    draws = np.maximum(population // 3, 8)
+    lo = np.maximum(0, draws + successes - population)
+    hi = np.minimum(draws, successes)
+    x = (lo + rng.random(2000) * (hi - lo + 1)).astype(np.int64)
+    low, high = _hypergeom_tails(x, population, successes, draws, np.ones(2000, dtype=bool))
+    np.testing.assert_allclose(low, hypergeom.cdf(x, population, successes, draws), rtol=1e-10, atol=1e-300)
+    np.testing.assert_allclose(high, hypergeom.sf(x - 1, population, successes, draws), rtol=1e-10, atol=1e-300)
