@@ -212,6 +212,27 @@ def run_on_dask(command: str, engine: dict, kwargs: dict, out_dir: Path, console
     return run
 
 
+def output_options(folder_help: str):
+    """``--out`` (a folder) and ``--format`` of the commands that write a run folder."""
+
+    def apply(func):
+        func = click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv",
+                            show_default=True, help="File format of the tables.")(func)
+        return click.option("--out", "out_dir", required=True,
+                            type=click.Path(file_okay=False, path_type=Path), help=folder_help)(func)
+
+    return apply
+
+
+def write_routed(stage: Path, result, fmt: str) -> None:
+    """The routed forecast's tables: forecasts, audit trail and patterns."""
+    from .io import write_table
+
+    write_table(result.table(), stage / f"forecasts.{fmt}")
+    write_table(result.audit, stage / f"audit.{fmt}")
+    write_table(result.classes, stage / f"patterns.{fmt}")
+
+
 # ------------------------------------------------------------------ classify
 
 
@@ -343,9 +364,7 @@ def pop_forecast_options(kwargs: dict) -> dict:
 @horizon_option
 @forecast_options
 @engine_options
-@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
-              help="Folder for forecasts and the audit table.")
-@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
+@output_options("Folder for forecasts and the audit table.")
 def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     """Route every item to a suitable method and forecast, with an audit trail."""
     from .io import staged_output, write_table
@@ -364,9 +383,7 @@ def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     panel, _, source = load_input(kwargs, console)
     result = routed_forecast(panel, horizon, fopts, copts, console)
     with staged_output(out_dir) as stage:
-        write_table(result.table(), stage / f"forecasts.{fmt}")
-        write_table(result.audit, stage / f"audit.{fmt}")
-        write_table(result.classes, stage / f"patterns.{fmt}")
+        write_routed(stage, result, fmt)
         write_manifest(stage, "forecast", source, horizon=horizon, classify_options=copts,
                        forecast_options=fopts)
         if result.selection is not None:
@@ -426,9 +443,7 @@ def _routing_summary(audit):
 @click.option("--weights", type=click.Choice(["volume", "value"]), default="volume", show_default=True,
               help="Weighting of the weighted scores (value = unit price x units).")
 @engine_options
-@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
-              help="Folder for scores.csv and item_scores.csv.")
-@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
+@output_options("Folder for scores.csv and item_scores.csv.")
 def backtest_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     """Score every method, the router and the naive baselines on your own history."""
     from .evaluate import backtest
@@ -599,9 +614,7 @@ def compute_stock(result, opts: dict):
 @forecast_options
 @stock_options
 @engine_options
-@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
-              help="Folder for stock.csv (and the forecasts and audit behind it).")
-@click.option("--format", "fmt", type=click.Choice(["csv", "parquet"]), default="csv", show_default=True)
+@output_options("Folder for stock.csv (and the forecasts and audit behind it).")
 def stock_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     """Reorder points and order-up-to levels from the routed forecast distributions."""
     from .io import staged_output, write_table
@@ -625,9 +638,7 @@ def stock_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
     table = compute_stock(result, sopts)
     with staged_output(out_dir) as stage:
         write_table(table, stage / f"stock.{fmt}")
-        write_table(result.table(), stage / f"forecasts.{fmt}")
-        write_table(result.audit, stage / f"audit.{fmt}")
-        write_table(result.classes, stage / f"patterns.{fmt}")
+        write_routed(stage, result, fmt)
         write_manifest(stage, "stock", source, horizon=horizon, classify_options=copts,
                        forecast_options=fopts, stock_options=sopts)
     click.echo(totals_text(table))
