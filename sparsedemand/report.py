@@ -72,6 +72,7 @@ from matplotlib.ticker import FuncFormatter, MaxNLocator
 from .classify import PATTERNS, STATUSES, croston_sba_boundary
 from .errors import InputError
 from .io import Columns, load_frame, period_labels, read_demand, write_text
+from .evaluate import BASELINES, ROUTER
 from .stock import STOCK_CAUTION
 from .panel import DemandPanel, as_panel, first_demand_offsets
 
@@ -95,10 +96,6 @@ RUN_TABLES: dict[str, tuple[tuple[str, ...], str]] = {
     "item_scores": (("item", "method"), "sparsedemand backtest"),
     "stock": (("item",), "sparsedemand stock"),
 }
-ROUTER = "router"
-BASELINES: tuple[str, ...] = (
-    "zeros", "mean_all", "mean_since_first", "mean_recent", "repeat_last", "seasonal_mean",
-)
 LEVEL_ALPHA = 0.1
 
 # direction of a metric when judging the router against the baselines
