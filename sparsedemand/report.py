@@ -936,6 +936,8 @@ def _patterns_section(ctx: _Context) -> str:
 
 def _metric_level(scores: pd.DataFrame, metric: str) -> str:
     levels = list(dict.fromkeys(scores.loc[scores["metric"] == metric, "level"]))
+    if "all" in levels:  # the score combined over levels (weighted RMSSE) is the headline
+        return "all"
     for level in _LEVEL_ORDER:
         if level in levels:
             return level
