@@ -35,6 +35,8 @@ def first_demand_offsets(values: np.ndarray) -> np.ndarray:
     array([2, 3])
     """
     positive = values > 0
+    if values.shape[1] == 0:  # no periods: argmax has nothing to look at
+        return np.zeros(values.shape[0], dtype=np.int64)
     offsets = positive.argmax(axis=1).astype(np.int64)
     offsets[~positive.any(axis=1)] = values.shape[1]
     return offsets

@@ -260,3 +260,8 @@ def test_as_panel_from_frames(long_frame, wide_frame):
     assert from_wide.values.tolist() == [[1, 0, 2], [0, 4, 0], [0, 2, 0]]
     series = as_panel(pd.Series([1.0, 0.0, 2.0], index=[0, 1, 2], name="X"))
     assert series.items.tolist() == ["X"] and series.values.tolist() == [[1, 0, 2]]
+
+
+def test_first_demand_offsets_with_no_periods():
+    # An empty history has its "first demand" at the end of the calendar, here 0.
+    assert first_demand_offsets(np.zeros((3, 0))).tolist() == [0, 0, 0]
