@@ -581,17 +581,23 @@ def lead_times(panel, opts: dict):
     return vals.astype(np.int64)
 
 
-def compute_stock(result, opts: dict):
-    """Stock targets for a routed forecast, with the CLI's options."""
+def compute_stock(result, opts: dict, *, snapshot: pd.DataFrame | None = None):
+    """Stock targets for a routed forecast, with the CLI's options.
+
+    ``snapshot`` (current ``on_hand`` and ``on_order`` indexed by item, already
+    checked against every item) is read from ``opts["on_hand_file"]`` when not
+    given; the Dask engine passes the one it checked for all partitions.
+    """
     from .stock import stock_targets
 
     panel = result.panel
+    if snapshot is None and opts["on_hand_file"] is not None:
+        snapshot = pd.DataFrame(read_on_hand(opts["on_hand_file"], panel.items), index=panel.items)
     extra = {}
-    if opts["on_hand_file"] is not None:
-        snapshot = read_on_hand(opts["on_hand_file"], panel.items)
-        extra["on_hand"] = snapshot["on_hand"]
-        if "on_order" in snapshot:
-            extra["on_order"] = snapshot["on_order"]
+    if snapshot is not None:
+        aligned = snapshot.reindex(panel.items)
+        for column in aligned.columns:
+            extra[column] = aligned[column].to_numpy(dtype=np.float64)
     price = panel.attribute("unit_price")
     if price.notna().any():
         extra["unit_price"] = price.to_numpy(dtype=float)

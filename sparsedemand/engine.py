@@ -609,7 +609,9 @@ def _run_part(part: _Part, task: _Task, snapshot: pd.DataFrame | None, index: in
     result = forecast(panel, task.horizon, overrides=overrides, **task.forecast)
     tables = {"forecasts": result.table(), "audit": result.audit, "patterns": result.classes}
     if task.command == "stock":
-        tables["stock"] = _stock_table(result, task.stock, snapshot)
+        from .cli import compute_stock
+
+        tables["stock"] = compute_stock(result, task.stock, snapshot=snapshot)
         from .stock import stock_totals
 
         out["stock_totals"] = stock_totals(tables["stock"])
@@ -632,26 +634,6 @@ def _write_part(frame: pd.DataFrame, stage: Path, name: str, part_file: str, out
         raise InputError(f"--out {out_dir}: the workers cannot see the staging folder {stage}; give an output "
                          "folder on storage shared by every worker (or the run was stopped)")
     write_table(frame, stage / name / part_file)
-
-
-def _stock_table(result, opts: dict, snapshot: pd.DataFrame | None) -> pd.DataFrame:
-    """The stock command's targets for one partition (on-hand stock from the checked snapshot)."""
-    from .cli import lead_times
-    from .stock import stock_targets
-
-    panel = result.panel
-    extra = {}
-    if snapshot is not None:
-        aligned = snapshot.reindex(panel.items)
-        for column in aligned.columns:
-            extra[column] = aligned[column].to_numpy(dtype=np.float64)
-    price = panel.attribute("unit_price")
-    if price.notna().any():
-        extra["unit_price"] = price.to_numpy(dtype=float)
-    return stock_targets(result.item_forecasts(), lead_time=lead_times(panel, opts),
-                         review_period=opts["review_period"], service_level=opts["service_level"],
-                         fill_rate=opts["fill_rate"], history=panel, items=panel.items, seed=opts.get("seed", 0),
-                         **extra)
 
 
 def _holdout_scores(part: _Part, policy: Mapping, candidates: tuple, holdout: int, cost: str,
