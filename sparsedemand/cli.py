@@ -11,6 +11,7 @@ import os
 import sys
 from pathlib import Path
 
+import contextlib
 import dataclasses
 
 import click
@@ -34,19 +35,8 @@ class Console:
     def progress(self, iterable, *, label: str, length: int | None = None):
         """A progress bar on a terminal; a plain iterator otherwise."""
         if self.quiet or not sys.stderr.isatty():
-            return _Passthrough(iterable)
+            return contextlib.nullcontext(iterable)
         return click.progressbar(iterable, length=length, label=label, file=sys.stderr)
-
-
-class _Passthrough:
-    def __init__(self, iterable) -> None:
-        self.iterable = iterable
-
-    def __enter__(self):
-        return self.iterable
-
-    def __exit__(self, *exc) -> None:
-        return None
 
 
 def input_options(func):
