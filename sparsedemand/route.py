@@ -83,6 +83,7 @@ from numba import njit
 from . import methods as _methods
 from .classify import classify as _classify
 from .errors import InputError
+from .io import _first_line
 from .methods.distributions import demand_pmfs, ragged_quantiles
 from .panel import DemandPanel, as_panel
 
@@ -207,11 +208,6 @@ def _check_rule(rule: Rule, where: str, key_where=None, checked: set | None = No
             raise InputError(f"{place}: bad parameters for {rule.method}: {_first_line(exc)}") from None
     if checked is not None:
         checked.add(rule.key())
-
-
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip()
-    return text.splitlines()[0] if text else type(exc).__name__
 
 
 def _read_text(path, what: str) -> str:
