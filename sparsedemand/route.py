@@ -63,8 +63,6 @@ items it is fitted with.
 
 from __future__ import annotations
 
-import math
-
 import contextlib
 import csv
 import dataclasses
