@@ -172,3 +172,27 @@ def test_panel_input_is_accepted():
     y_nan[0, 30] = np.nan
     panel = as_panel(y_nan)
     np.testing.assert_allclose(M.tsb(panel), M.tsb(y_nan))
+
+
+@pytest.mark.parametrize("method", ["sba", "croston", "sbj", "ses"])
+def test_imapa_is_the_equal_weight_mean_of_adida_over_levels(method):
+    # IMAPA (Petropoulos & Kourentzes 2015, JORS 66:914-924) averages the ADIDA forecasts at
+    # levels 1 .. max_level; the fixed-constant kernel runs the levels side by side, so check it
+    # against one ADIDA fit per level (unequal sizes, gaps, unavailable periods, alpha up to 1).
+    rng = np.random.default_rng(11)
+    for trial in range(60):
+        n = int(rng.integers(1, 90))
+        y = (rng.random(n) < rng.uniform(0.05, 0.8)) * rng.uniform(0.5, 40.0, n)
+        if trial % 3 == 0:
+            y[rng.random(n) < 0.15] = np.nan
+        alpha = float(rng.uniform(0.01, 1.0))
+        for max_level in (None, 1, 3, 6, 200):
+            f, params, _ = M.imapa(y, max_level=max_level, method=method, alpha=alpha,
+                                   return_params=True)
+            top = params["max_level"]
+            if np.isnan(top):
+                assert f[0] == 0.0
+                continue
+            per_level = [M.adida(y, level=lv, method=method, alpha=alpha)[0]
+                         for lv in range(1, int(top) + 1)]
+            assert f[0] == pytest.approx(np.mean(per_level), rel=1e-12, abs=1e-300)

@@ -40,6 +40,7 @@ from ._input import (
     run_public,
 )
 from .events import run_in_threads, size_moments
+from .croston import bias_factor
 from .optimize import WORK_SIZE
 
 __all__ = ["adida", "imapa", "aggregate_item", "AGGREGATE_METHODS"]
@@ -96,10 +97,152 @@ def _adida_item(method, pos, size, n, level, alpha, cost_code, lo, hi, st, bp, b
     return max(f, 0.0) / level, c, a
 
 
+LANES = 4  # levels advanced together in one read of the events
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _bucket_of(t, shift, inv):
+    # floor((t - offset + 0.5) / level): exact for integer t, -1 before the offset
+    return np.floor((t + shift) * inv)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _croston_step(t, ay, r, shift, inv, z, x, disc, cur):
+    # one demand (position t, alpha * size ay) into one level's discounted sums;
+    # x is kept divided by alpha
+    q = _bucket_of(t, shift, inv)
+    d = q - cur
+    m = r if d != 0.0 else 1.0
+    return z * m + ay, x * m + d, disc * m, q
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _ses_step(t, ay, rpow, shift, inv, z, cur):
+    q = _bucket_of(t, shift, inv)
+    return z * rpow[int(q - cur)] + ay, q
+
+
+@njit(cache=True, nogil=True, fastmath={"contract"})
+def _levels_forecast(method, pos, size, n, levels, alpha, factor, rpow, lane, start, out):
+    """Per-period ADIDA forecasts at ``LANES`` levels with a fixed constant, in one pass.
+
+    IMAPA with a given constant needs each level's final state, not its
+    in-sample cost, so ``LANES`` levels share one read of the events and
+    their recurrences run side by side, without branches. Written as sums,
+    the Croston state after the buckets ``1 .. m`` with sums ``s_i`` and gaps
+    ``g_i`` is ``z = r**(m-1) s_1 + a sum_{i>=2} r**(m-i) s_i`` and
+    ``x = r**(m-2) g_2 + a sum_{i>=3} r**(m-i) g_i`` (``r = 1 - a``): every
+    demand adds ``a y`` to ``z``, every new bucket first discounts ``z`` and
+    ``x`` by ``r`` and adds ``a g`` to ``x``, and the first bucket's extra
+    weight is added at the end. SES is the same with a discount of ``r**g``.
+    The result equals the bucket-by-bucket recurrence up to rounding.
+    ``rpow[g] = r**g``; ``lane`` is scratch of ``(6, LANES)`` floats and
+    ``start`` of ``LANES`` integers. ``out[g]`` is NaN when no complete
+    bucket has demand at ``levels[g]``.
+    """
+    ses = method == SES
+    r = 1.0 - alpha
+    k = pos.shape[0]
+    shift, inv, z, x, disc, cur = lane[0], lane[1], lane[2], lane[3], lane[4], lane[5]
+    common = 0
+    for g in range(LANES):
+        lv = levels[g]
+        offset = n - (n // lv) * lv
+        shift[g] = 0.5 - offset
+        inv[g] = 1.0 / lv
+        j = 0
+        while j < k and pos[j] < offset:
+            j += 1
+        start[g] = j
+        common = max(common, j)
+    # each level starts at its own first complete bucket, then all run together
+    for g in range(LANES):
+        z[g] = 0.0
+        x[g] = 0.0
+        disc[g] = 1.0
+        if start[g] == k:
+            continue
+        cur[g] = _bucket_of(float(pos[start[g]]), shift[g], inv[g])
+        for j in range(start[g], common):
+            if ses:
+                z[g], cur[g] = _ses_step(float(pos[j]), alpha * size[j], rpow, shift[g], inv[g],
+                                         z[g], cur[g])
+            else:
+                z[g], x[g], disc[g], cur[g] = _croston_step(
+                    float(pos[j]), alpha * size[j], r, shift[g], inv[g], z[g], x[g],
+                    disc[g], cur[g])
+    h0, h1, h2, h3 = shift[0], shift[1], shift[2], shift[3]
+    v0, v1, v2, v3 = inv[0], inv[1], inv[2], inv[3]
+    z0, z1, z2, z3 = z[0], z[1], z[2], z[3]
+    b0, b1, b2, b3 = cur[0], cur[1], cur[2], cur[3]
+    if ses:
+        for j in range(common, k):
+            t = float(pos[j])
+            ay = alpha * size[j]
+            z0, b0 = _ses_step(t, ay, rpow, h0, v0, z0, b0)
+            z1, b1 = _ses_step(t, ay, rpow, h1, v1, z1, b1)
+            z2, b2 = _ses_step(t, ay, rpow, h2, v2, z2, b2)
+            z3, b3 = _ses_step(t, ay, rpow, h3, v3, z3, b3)
+    else:
+        x0, x1, x2, x3 = x[0], x[1], x[2], x[3]
+        d0, d1, d2, d3 = disc[0], disc[1], disc[2], disc[3]
+        for j in range(common, k):
+            t = float(pos[j])
+            ay = alpha * size[j]
+            z0, x0, d0, b0 = _croston_step(t, ay, r, h0, v0, z0, x0, d0, b0)
+            z1, x1, d1, b1 = _croston_step(t, ay, r, h1, v1, z1, x1, d1, b1)
+            z2, x2, d2, b2 = _croston_step(t, ay, r, h2, v2, z2, x2, d2, b2)
+            z3, x3, d3, b3 = _croston_step(t, ay, r, h3, v3, z3, x3, d3, b3)
+        x[0], x[1], x[2], x[3] = x0, x1, x2, x3
+        disc[0], disc[1], disc[2], disc[3] = d0, d1, d2, d3
+    z[0], z[1], z[2], z[3] = z0, z1, z2, z3
+    cur[0], cur[1], cur[2], cur[3] = b0, b1, b2, b3
+    for g in range(LANES):
+        out[g] = _lane_finish(ses, pos, size, n, levels[g], start[g], alpha, factor, rpow,
+                              shift[g], inv[g], z[g], x[g], disc[g], cur[g])
+
+
+@njit(cache=True, nogil=True)
+def _lane_finish(ses, pos, size, n, level, j, alpha, factor, rpow, shift, inv, z, x, disc, last):
+    # add the first bucket's extra weight; per-period forecast of one level
+    k = pos.shape[0]
+    if j == k:
+        return np.nan
+    r = 1.0 - alpha
+    first = _bucket_of(float(pos[j]), shift, inv)
+    s1 = 0.0
+    while j < k and _bucket_of(float(pos[j]), shift, inv) == first:
+        s1 += size[j]
+        j += 1
+    if ses:
+        level_now = z + rpow[int(last - first) + 1] * s1
+        f = level_now * rpow[n // level - 1 - int(last)]
+    elif j == k:
+        f = factor * s1  # one bucket with demand: interval 1
+    else:
+        second = _bucket_of(float(pos[j]), shift, inv)
+        f = factor * (z + r * disc * s1) / (alpha * x + disc * (second - first))
+    return max(f, 0.0) / level
+
+
 @njit(cache=True, nogil=True)
 def _aggregate_panel(i0, i1, indptr, pos, size, length, method, alpha, cost_code, lo, hi, level,
                      combine, out):
     st = np.empty(WORK_SIZE)
+    fixed = alpha == alpha
+    factor = bias_factor(method, alpha) if fixed else 1.0
+    levels = np.empty(LANES, np.int64)
+    lane = np.empty((6, LANES))
+    start = np.empty(LANES, np.int64)
+    fc = np.empty(LANES)
+    longest = 0
+    for i in range(i0, i1):
+        longest = max(longest, length[i])
+    rpow = np.empty(longest + 1)
+    if fixed:
+        rpow[0] = 1.0
+        for g in range(1, longest + 1):
+            rpow[g] = rpow[g - 1] * (1.0 - alpha)
     for i in range(i0, i1):
         n = length[i]
         if n == 0:
@@ -109,8 +252,9 @@ def _aggregate_panel(i0, i1, indptr, pos, size, length, method, alpha, cost_code
         p = pos[indptr[i]:indptr[i + 1]]
         s = size[indptr[i]:indptr[i + 1]]
         k = p.shape[0]
-        bp = np.empty(k, np.int64)
-        bs = np.empty(k, np.float64)
+        if not (combine and fixed):
+            bp = np.empty(k, np.int64)
+            bs = np.empty(k, np.float64)
         if not combine:
             lv = level if level > 0 else _mean_interval_level(n, k, 1)
             f, c, a = _adida_item(method, p, s, n, lv, alpha, cost_code, lo, hi, st, bp, bs)
@@ -121,6 +265,23 @@ def _aggregate_panel(i0, i1, indptr, pos, size, length, method, alpha, cost_code
             continue
         top = level if level > 0 else _mean_interval_level(n, k, 2)
         top = min(top, n)
+        if fixed:
+            # a combination has no single in-sample cost, so skip it
+            total = 0.0
+            with_demand = 0
+            for l0 in range(1, top + 1, LANES):
+                for g in range(LANES):
+                    levels[g] = min(l0 + g, top)  # spare lanes repeat the top level
+                _levels_forecast(method, p, s, n, levels, alpha, factor, rpow, lane, start, fc)
+                for g in range(min(LANES, top + 1 - l0)):
+                    if fc[g] == fc[g]:
+                        total += fc[g]
+                        with_demand += 1
+            out[0, i] = total / top
+            out[1, i] = np.nan
+            out[2, i] = alpha if with_demand > 0 else np.nan
+            out[3, i] = top
+            continue
         total = 0.0
         a_sum = 0.0
         a_count = 0
