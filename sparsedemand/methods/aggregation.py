@@ -58,19 +58,19 @@ def aggregate_item(pos, size, n, level, out_pos, out_size):
     n_buckets = n // level
     offset = n - n_buckets * level
     k = 0
-    last = -1
+    end = offset  # first period after the current bucket
     for j in range(pos.shape[0]):
         p = pos[j]
         if p < offset:
             continue
-        b = (p - offset) // level
-        if b == last:
+        if p < end:
             out_size[k - 1] += size[j]
         else:
+            b = (p - offset) // level  # divide once per bucket, not per demand
+            end = offset + (b + 1) * level
             out_pos[k] = b
             out_size[k] = size[j]
             k += 1
-            last = b
     if k == 0:
         return 0, 0
     b0 = out_pos[0]

@@ -125,15 +125,16 @@ def run_constant(code, acc, cum, f, m):
 
     The cumulative error after ``k`` of them is ``cum - k f``.
     """
+    mf = float(max(m, 0))
+    # with m = 0 every branch adds nothing, so short runs need no test of their own
+    if code == MSE:
+        return acc + mf * f * f, cum - mf * f
+    if code == MAE:
+        return acc + mf * f, cum - mf * f
     if m <= 0:
         return acc, cum
-    mf = float(m)
     s1 = mf * (mf + 1.0) / 2.0
-    if code == MSE:
-        acc += mf * f * f
-    elif code == MAE:
-        acc += mf * f
-    elif code == MSR:
+    if code == MSR:
         s2 = mf * (mf + 1.0) * (2.0 * mf + 1.0) / 6.0
         acc += mf * cum * cum - 2.0 * cum * f * s1 + f * f * s2
     else:
