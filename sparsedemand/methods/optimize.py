@@ -35,13 +35,18 @@ With one-step in-sample errors ``e_t = y_t - f_t`` over the periods
 Search
 ------
 One free constant: an evenly spaced grid of ``GRID_1D`` points over the
-bounds, then golden-section refinement inside the two grid cells around the
-best grid point, to a width of ``TOL``. Two free constants: a ``GRID_2D`` x
-``GRID_2D`` grid, then ``ROUNDS_2D`` rounds of golden-section line searches
-(to a width of ``TOL_2D``) along each axis around the incumbent, the second
-round in half-cells. The result is the best point ever
-evaluated, so it is never worse than any grid point; ties keep the earliest
-point (the smaller constant).
+bounds, then Brent's method (parabolic interpolation safeguarded by
+golden-section steps; Brent 1973, Algorithms for Minimization without
+Derivatives, ch. 5) inside the two grid cells around the best grid point, to
+a width of ``TOL``; the best grid point and its two neighbours give the first
+parabola. On the smooth costs this takes about 8 steps where golden section
+alone takes 23. Two free constants: a ``GRID_2D`` x ``GRID_2D`` grid, then
+``ROUNDS_2D`` rounds of the same line search (to a width of ``TOL_2D``) along
+each axis around the incumbent, the second round in half-cells. The result
+is the best point ever evaluated, so it is never worse than any grid point;
+ties keep the earliest point (the smaller constant). Like any local search,
+the refinement can stop in a second, shallower dip of a non-smooth cost
+(MAE, MAR) inside the bracket.
 
 Examples
 --------
@@ -99,7 +104,6 @@ GRID_2D = 5
 ROUNDS_2D = 2
 TOL = 1e-6
 TOL_2D = 1e-3
-_INVPHI = (math.sqrt(5.0) - 1.0) / 2.0
 _INF = np.inf
 
 
@@ -244,27 +248,96 @@ def finish_cost(acc, count):
 
 # ------------------------------------------------------------ 1-D line search
 # state layout of a line search (offsets inside the state array)
-_PH, _LO, _HI, _N, _I, _BX, _BF, _BI, _A, _B, _C, _D, _FC, _FD, _STG, _X, _TL = range(17)
-_LINE = 17
-_GRID, _GOLD, _DONE = 0.0, 1.0, 2.0
+(_PH, _LO, _HI, _N, _I, _BX, _BF, _BI, _A, _B, _XB, _W, _V, _FX, _FW, _FV, _DD, _EE, _X, _TL,
+ _PREV, _LEFT, _RIGHT, _WANT) = range(24)
+_LINE = 24
+_GRID, _START, _BRENT, _DONE = 0.0, 1.0, 2.0, 3.0
+_CGOLD = (3.0 - math.sqrt(5.0)) / 2.0
+_MAX_STEPS = 200  # a guard only: the bracket shrinks at every step
+
+
+@njit("void(float64[::1], int64)", cache=True, nogil=True)
+def _brent_next(st, o):
+    # choose the next point: a parabolic step when it is safe, a golden-section step otherwise
+    a = st[o + _A]
+    b = st[o + _B]
+    x = st[o + _XB]
+    tol1 = st[o + _TL] / 4.0
+    tol2 = 2.0 * tol1
+    xm = 0.5 * (a + b)
+    if abs(x - xm) <= tol2 - 0.5 * (b - a):
+        st[o + _PH] = _DONE
+        return
+    e = st[o + _EE]
+    d = st[o + _DD]
+    golden = True
+    if abs(e) > tol1:
+        w, v = st[o + _W], st[o + _V]
+        fx, fw, fv = st[o + _FX], st[o + _FW], st[o + _FV]
+        r = (x - w) * (fx - fv)
+        q = (x - v) * (fx - fw)
+        p = (x - v) * q - (x - w) * r
+        q = 2.0 * (q - r)
+        if q > 0.0:
+            p = -p
+        q = abs(q)
+        e_before = e
+        e = d
+        if (q > 0.0 and abs(p) < abs(0.5 * q * e_before) and p > q * (a - x)
+                and p < q * (b - x)):
+            d = p / q
+            u = x + d
+            if u - a < tol2 or b - u < tol2:
+                d = tol1 if xm >= x else -tol1
+            golden = False
+    if golden:
+        e = (a - x) if x >= xm else (b - x)
+        d = _CGOLD * e
+    if abs(d) < tol1:
+        d = tol1 if d >= 0.0 else -tol1
+    st[o + _EE] = e
+    st[o + _DD] = d
+    st[o + _X] = x + d
 
 
 @njit("void(float64[::1], int64, float64, float64)", cache=True, nogil=True)
-def _golden_setup(st, o, a, b):
+def _brent_setup(st, o, a, b):
+    # refine inside [a, b]; after a grid, its best point and that point's grid
+    # neighbours seed the first parabola, otherwise start at the golden point
     if b - a <= st[o + _TL]:
         st[o + _PH] = _DONE
         return
     st[o + _A] = a
     st[o + _B] = b
-    st[o + _C] = b - _INVPHI * (b - a)
-    st[o + _D] = a + _INVPHI * (b - a)
-    st[o + _STG] = 0.0
-    st[o + _PH] = _GOLD
+    st[o + _DD] = 0.0
+    if st[o + _N] >= 2.0:
+        x = st[o + _BX]
+        st[o + _XB] = x
+        st[o + _FX] = st[o + _BF]
+        step = (st[o + _HI] - st[o + _LO]) / (st[o + _N] - 1.0)
+        left, right = st[o + _LEFT], st[o + _RIGHT]
+        w, fw = (x - step, left) if left == left else (x + step, right)
+        v, fv = (x + step, right) if right == right else (w, fw)
+        st[o + _W] = w
+        st[o + _FW] = fw if fw == fw else _INF
+        st[o + _V] = v
+        st[o + _FV] = fv if fv == fv else _INF
+        st[o + _EE] = b - a  # lets the first step be parabolic
+        st[o + _PH] = _BRENT
+        _brent_next(st, o)
+    else:
+        x = a + _CGOLD * (b - a)
+        st[o + _XB] = x
+        st[o + _W] = x
+        st[o + _V] = x
+        st[o + _EE] = 0.0
+        st[o + _X] = x
+        st[o + _PH] = _START
 
 
 @njit("void(float64[::1], int64, float64, float64, int64, float64)", cache=True, nogil=True)
 def line_start(st, o, lo, hi, n_grid, tol):
-    """Search [lo, hi] to width ``tol`` in ``st[o:o+17]``; ``n_grid < 2``: golden only."""
+    """Search [lo, hi] to width ``tol`` in ``st[o:o+24]``; ``n_grid < 2``: no grid."""
     st[o + _TL] = tol
     st[o + _LO] = lo
     st[o + _HI] = hi
@@ -273,10 +346,14 @@ def line_start(st, o, lo, hi, n_grid, tol):
     st[o + _BX] = lo
     st[o + _BF] = _INF
     st[o + _BI] = 0.0
+    st[o + _PREV] = np.nan
+    st[o + _LEFT] = np.nan
+    st[o + _RIGHT] = np.nan
+    st[o + _WANT] = 0.0
     if n_grid >= 2:
         st[o + _PH] = _GRID
     else:
-        _golden_setup(st, o, lo, hi)
+        _brent_setup(st, o, lo, hi)
 
 
 @njit("float64(float64[::1], int64)", cache=True, nogil=True)
@@ -285,13 +362,11 @@ def line_ask(st, o):
     ph = st[o + _PH]
     if ph == _GRID:
         x = st[o + _LO] + (st[o + _HI] - st[o + _LO]) * st[o + _I] / (st[o + _N] - 1.0)
-    elif ph == _GOLD:
-        stage = st[o + _STG]
-        x = st[o + _C] if stage == 0.0 or stage == 2.0 else st[o + _D]
-    else:
-        x = np.nan
-    st[o + _X] = x
-    return x
+        st[o + _X] = x
+        return x
+    if ph == _DONE:
+        return np.nan
+    return st[o + _X]
 
 
 @njit("void(float64[::1], int64, float64)", cache=True, nogil=True)
@@ -299,56 +374,72 @@ def line_tell(st, o, value):
     """Report the cost at the point last asked for."""
     if value != value:
         value = _INF
-    x = st[o + _X]
+    u = st[o + _X]
     ph = st[o + _PH]
     improved = value < st[o + _BF]
     if improved:
         st[o + _BF] = value
-        st[o + _BX] = x
+        st[o + _BX] = u
     if ph == _GRID:
+        if st[o + _WANT] == 1.0:
+            st[o + _RIGHT] = value
+            st[o + _WANT] = 0.0
         if improved:
             st[o + _BI] = st[o + _I]
+            st[o + _LEFT] = st[o + _PREV]
+            st[o + _RIGHT] = np.nan
+            st[o + _WANT] = 1.0
+        st[o + _PREV] = value
         st[o + _I] += 1.0
         if st[o + _I] >= st[o + _N]:
             lo = st[o + _LO]
             hi = st[o + _HI]
             step = (hi - lo) / (st[o + _N] - 1.0)
             centre = lo + step * st[o + _BI]
-            _golden_setup(st, o, max(lo, centre - step), min(hi, centre + step))
+            _brent_setup(st, o, max(lo, centre - step), min(hi, centre + step))
         return
-    if ph != _GOLD:
+    if ph == _START:
+        st[o + _FX] = value
+        st[o + _FW] = value
+        st[o + _FV] = value
+        st[o + _PH] = _BRENT
+        _brent_next(st, o)
         return
-    stage = st[o + _STG]
-    if stage == 0.0:
-        st[o + _FC] = value
-        st[o + _STG] = 1.0
+    if ph != _BRENT:
         return
-    if stage == 1.0 or stage == 3.0:
-        st[o + _FD] = value
-    else:
-        st[o + _FC] = value
-    a = st[o + _A]
-    b = st[o + _B]
-    c = st[o + _C]
-    d = st[o + _D]
-    if st[o + _FC] < st[o + _FD]:
-        b = d
-        d = c
-        st[o + _FD] = st[o + _FC]
-        c = b - _INVPHI * (b - a)
-        st[o + _STG] = 2.0
-    else:
-        a = c
-        c = d
-        st[o + _FC] = st[o + _FD]
-        d = a + _INVPHI * (b - a)
-        st[o + _STG] = 3.0
-    st[o + _A] = a
-    st[o + _B] = b
-    st[o + _C] = c
-    st[o + _D] = d
-    if b - a <= st[o + _TL]:
+    st[o + _I] += 1.0
+    if st[o + _I] > st[o + _N] + _MAX_STEPS:
         st[o + _PH] = _DONE
+        return
+    x = st[o + _XB]
+    fx = st[o + _FX]
+    if value <= fx:
+        if u >= x:
+            st[o + _A] = x
+        else:
+            st[o + _B] = x
+        st[o + _V] = st[o + _W]
+        st[o + _FV] = st[o + _FW]
+        st[o + _W] = x
+        st[o + _FW] = fx
+        st[o + _XB] = u
+        st[o + _FX] = value
+    else:
+        if u < x:
+            st[o + _A] = u
+        else:
+            st[o + _B] = u
+        w = st[o + _W]
+        v = st[o + _V]
+        if value <= st[o + _FW] or w == x:
+            st[o + _V] = w
+            st[o + _FV] = st[o + _FW]
+            st[o + _W] = u
+            st[o + _FW] = value
+        elif value <= st[o + _FV] or v == x or v == w:
+            st[o + _V] = u
+            st[o + _FV] = value
+    _brent_next(st, o)
 
 
 # --------------------------------------------------- plan for two constants

@@ -16,7 +16,7 @@ zero-truncated count law fitted to the ``k`` positive demands. For ZIP the
 truncated fit solves ``lam / (1 - exp(-lam)) = mean positive demand``
 (Newton, monotone from the right); for ZINB, for each ``r`` the truncated mean
 is matched the same way and ``r`` maximises the profile likelihood (grid plus
-golden section over ``log r`` in [0.01, 10 000], inside numba). Then
+Brent's line search over ``log r`` in [0.01, 10 000], inside numba). Then
 ``pi = 1 - (k / n) / (1 - P0)``. If that ``pi`` would be negative (fewer zeros
 than the count law alone implies) the maximum lies on ``pi = 0`` and the plain
 Poisson (``lam`` = mean) or NB (``mu`` = mean, ``r`` by profile) is fitted.
