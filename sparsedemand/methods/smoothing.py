@@ -36,7 +36,7 @@ from ._input import (
     run_public,
 )
 from .events import run_in_threads
-from .optimize import MSE, fill_powers, finish_cost, geometric_sums, point_error, run_constant, run_geometric
+from .optimize import MAE, MAR, MSE, MSR, fill_powers, finish_cost, geometric_sums, point_error, run_constant, run_geometric
 
 __all__ = ["ses", "moving_average", "ses_item", "ma_item", "window_mean"]
 
@@ -77,9 +77,8 @@ def window_mean(pos, size, n, w):
     return total / ww
 
 
-@njit("UniTuple(float64, 2)(int64[::1], float64[::1], int64, int64, int64)", cache=True, nogil=True)
-def ma_item(pos, size, n, w, cost_code):
-    """One item: (forecast, in-sample cost) of the moving average of order ``w``."""
+@njit(cache=True, nogil=True, inline="always")
+def _ma_run(pos, size, n, w, cost_code):
     k = pos.shape[0]
     acc = 0.0
     cum = 0.0
@@ -97,26 +96,42 @@ def ma_item(pos, size, n, w, cost_code):
         e = size[i_in] - f if (i_in < k and pos[i_in] == t) else -f
         acc, cum = point_error(cost_code, acc, cum, e)
         t += 1
-    # full windows: constant between the times a demand enters or leaves
+    while i_in < k and pos[i_in] < t:
+        s += size[i_in]
+        i_in += 1
+    # full windows: the forecast is constant until a demand enters or leaves the window;
+    # the demands i_out .. i_in-1 are inside, and only the next one to enter can fall in
+    # the current run (as its last period)
     while t < n:
-        while i_in < k and pos[i_in] < t:
+        enter = pos[i_in] + 1 if i_in < k else n + 1
+        leave = pos[i_out] + w + 1 if i_out < i_in else n + 1
+        nxt = min(enter, leave, n)
+        f = max(s, 0.0) / w
+        if enter == nxt:
+            acc, cum = run_constant(cost_code, acc, cum, f, nxt - t - 1)
+            acc, cum = point_error(cost_code, acc, cum, size[i_in] - f)
             s += size[i_in]
             i_in += 1
-        while i_out < i_in and pos[i_out] < t - w:
+        else:
+            acc, cum = run_constant(cost_code, acc, cum, f, nxt - t)
+        if leave == nxt:
             s -= size[i_out]
             i_out += 1
-        nxt = n
-        if i_in < k:
-            nxt = min(nxt, pos[i_in] + 1)
-        if i_out < i_in:
-            nxt = min(nxt, pos[i_out] + w + 1)
-        f = max(s, 0.0) / w
-        has_demand = i_in < k and pos[i_in] + 1 == nxt
-        acc, cum = run_constant(cost_code, acc, cum, f, nxt - t - (1 if has_demand else 0))
-        if has_demand:
-            acc, cum = point_error(cost_code, acc, cum, size[i_in] - f)
         t = nxt
     return window_mean(pos, size, n, w), finish_cost(acc, n - 1)
+
+
+@njit("UniTuple(float64, 2)(int64[::1], float64[::1], int64, int64, int64)", cache=True, nogil=True)
+def ma_item(pos, size, n, w, cost_code):
+    """One item: (forecast, in-sample cost) of the moving average of order ``w``."""
+    # one specialised loop per cost (the constant folds into the inlined loop)
+    if cost_code == MSE:
+        return _ma_run(pos, size, n, w, MSE)
+    if cost_code == MAE:
+        return _ma_run(pos, size, n, w, MAE)
+    if cost_code == MAR:
+        return _ma_run(pos, size, n, w, MAR)
+    return _ma_run(pos, size, n, w, MSR)
 
 
 @njit(cache=True, nogil=True)
