@@ -57,14 +57,18 @@ def _truncated_poisson_rate(mean_pos):
 
 
 @njit(cache=True, nogil=True)
-def zip_item(size, n):
-    """(pi, lam, negative log-likelihood per period) of one item's history."""
+def zip_item(size, n, table, vals, cnts):
+    """(pi, lam, negative log-likelihood per period) of one item's history.
+
+    ``table``, ``vals`` and ``cnts`` are scratch as for :func:`zinb_item`.
+    """
     k = size.shape[0]
+    g, _ = _size_summary(size, table, vals, cnts)
     total = 0.0
     lg = 0.0
-    for j in range(k):
-        total += size[j]
-        lg += math.lgamma(size[j] + 1.0)
+    for q in range(g):
+        total += cnts[q] * vals[q]
+        lg += cnts[q] * math.lgamma(vals[q] + 1.0)
     n0 = n - k
     pi = 0.0
     lam = total / n
@@ -87,9 +91,11 @@ def _log_p0(mu, r):
 
 
 @njit(cache=True, nogil=True)
-def _truncated_nb_mean(mean_pos, r):
-    # root of h(mu) = mu - m (1 - P0(mu)); convex, h(0) = 0, h'(0) = 1 - m < 0
-    mu = mean_pos
+def _truncated_nb_mean(mean_pos, r, mu):
+    # root of h(mu) = mu - m (1 - P0(mu)); convex, h(0) = 0, h'(0) = 1 - m < 0; Newton from
+    # the caller's guess (the root at a nearby r), or from m, where h >= 0
+    if mu != mu or mu <= 0.0 or mu - mean_pos * (1.0 - math.exp(_log_p0(mu, r))) < 0.0:
+        mu = mean_pos
     for _ in range(100):
         p0 = math.exp(_log_p0(mu, r))
         h = mu - mean_pos * (1.0 - p0)
@@ -101,74 +107,132 @@ def _truncated_nb_mean(mean_pos, r):
     return mu
 
 
-@njit(cache=True, nogil=True)
-def _nb_positive_ll(vals, cnts, k, total, mu, r):
-    # log-likelihood of the positive demands under the untruncated NB(mu, r)
-    s = 0.0
-    lgr = math.lgamma(r)
-    for g in range(vals.shape[0]):
-        v = vals[g]
-        s += cnts[g] * (math.lgamma(v + r) - lgr - math.lgamma(v + 1.0))
-    return s + k * _log_p0(mu, r) + total * (math.log(mu) - math.log(r + mu))
-
-
-@njit("UniTuple(float64, 2)(float64[::1], float64[::1], int64, int64, float64, boolean, float64)", cache=True, nogil=True)
-def _profile(vals, cnts, k, n, total, truncated, r):
-    # negative profile log-likelihood at r: truncated positives, or plain NB on all n
-    if truncated:
-        mu = _truncated_nb_mean(total / k, r)
-        lp0 = _log_p0(mu, r)
-        return mu, -(_nb_positive_ll(vals, cnts, k, total, mu, r) - k * math.log(-math.expm1(lp0)))
-    mu = total / n
-    return mu, -(_nb_positive_ll(vals, cnts, k, total, mu, r) + (n - k) * _log_p0(mu, r))
-
-
-@njit("UniTuple(float64, 2)(float64[::1], float64[::1], int64, int64, float64, boolean, float64[::1])", cache=True, nogil=True)
-def _fit_r(vals, cnts, k, n, total, truncated, st):
-    line_start(st, 0, math.log(_R_LOW), math.log(_R_HIGH), 16, 1e-3)
-    best_u = math.log(_R_HIGH)
-    best = np.inf
-    while True:
-        u = line_ask(st, 0)
-        if u != u:
-            break
-        v = _profile(vals, cnts, k, n, total, truncated, math.exp(u))[1]
-        if v < best:
-            best = v
-            best_u = u
-        line_tell(st, 0, v)
-    r = math.exp(best_u)
-    return _profile(vals, cnts, k, n, total, truncated, r)[0], r
+# integer sizes up to this value are counted in a table instead of sorted
+_TABLE = 1024
 
 
 @njit(cache=True, nogil=True)
-def zinb_item(size, n, st):
-    """(pi, mu, r, negative log-likelihood per period) of one item's history."""
+def _size_summary(size, table, vals, cnts):
+    """Distinct sizes and their counts (sorted); returns (groups, largest integer or -1).
+
+    Integer sizes up to ``_TABLE`` are counted in ``table`` (left zeroed); other
+    sizes are sorted. The second value is the largest size when every size is
+    an integer in the table, else -1.
+    """
     k = size.shape[0]
-    srt = np.sort(size)
-    vals = np.empty(k)
-    cnts = np.empty(k)
-    g = 0
-    total = 0.0
+    top = 0
     for j in range(k):
-        total += srt[j]
+        v = size[j]
+        if v != math.floor(v) or v > _TABLE:
+            top = -1
+            break
+        top = max(top, int(v))
+    g = 0
+    if top >= 0:
+        for j in range(k):
+            table[int(size[j])] += 1.0
+        for v in range(1, top + 1):
+            if table[v] > 0.0:
+                vals[g] = v
+                cnts[g] = table[v]
+                g += 1
+                table[v] = 0.0
+        return g, top
+    srt = np.sort(size)
+    for j in range(k):
         if g > 0 and srt[j] == vals[g - 1]:
             cnts[g - 1] += 1.0
         else:
             vals[g] = srt[j]
             cnts[g] = 1.0
             g += 1
-    vals = vals[:g]
-    cnts = cnts[:g]
+    return g, -1
+
+
+@njit(cache=True, nogil=True)
+def _gamma_ratio_sum(vals, cnts, g, tails, top, r):
+    # sum over demands of lgamma(y + r) - lgamma(r); for integer sizes this is
+    # sum_{i < y} log(r + i), i.e. sum_i tails[i] log(r + i) with tails[i] = #{y > i},
+    # cheaper than two lgamma calls per distinct size when the sizes are small
+    s = 0.0
+    if top >= 0 and top <= 3 * g + 4:
+        for i in range(top):
+            s += tails[i] * math.log(r + i)
+        return s
+    lgr = math.lgamma(r)
+    for q in range(g):
+        s += cnts[q] * (math.lgamma(vals[q] + r) - lgr)
+    return s
+
+
+@njit(cache=True, nogil=True)
+def _profile(vals, cnts, g, tails, top, k, n, total, truncated, r, mu0):
+    # (mu, negative profile log-likelihood at r without the constant sum of lgamma(y + 1)):
+    # truncated positives, or plain NB on all n periods
+    ratio = _gamma_ratio_sum(vals, cnts, g, tails, top, r)
+    if truncated:
+        mu = _truncated_nb_mean(total / k, r, mu0)
+        lp0 = _log_p0(mu, r)
+        ll = ratio + k * lp0 + total * (math.log(mu) - math.log(r + mu))
+        return mu, -(ll - k * math.log(-math.expm1(lp0)))
+    mu = total / n
+    ll = ratio + k * _log_p0(mu, r) + total * (math.log(mu) - math.log(r + mu))
+    return mu, -(ll + (n - k) * _log_p0(mu, r))
+
+
+@njit(cache=True, nogil=True)
+def _fit_r(vals, cnts, g, tails, top, k, n, total, truncated, st):
+    line_start(st, 0, math.log(_R_LOW), math.log(_R_HIGH), 16, 1e-3)
+    best_u = math.log(_R_HIGH)
+    best = np.inf
+    mu = np.nan
+    while True:
+        u = line_ask(st, 0)
+        if u != u:
+            break
+        mu, v = _profile(vals, cnts, g, tails, top, k, n, total, truncated, math.exp(u), mu)
+        if v < best:
+            best = v
+            best_u = u
+        line_tell(st, 0, v)
+    r = math.exp(best_u)
+    return _profile(vals, cnts, g, tails, top, k, n, total, truncated, r, mu)[0], r
+
+
+@njit(cache=True, nogil=True)
+def zinb_item(size, n, st, table, vals, cnts, tails):
+    """(pi, mu, r, negative log-likelihood per period) of one item's history.
+
+    ``table`` (``_TABLE + 1`` zeros, left zeroed), ``vals``, ``cnts`` and
+    ``tails`` (at least ``max(len(size), _TABLE)`` floats) are scratch.
+    """
+    k = size.shape[0]
+    g, top = _size_summary(size, table, vals, cnts)
+    total = 0.0
+    lg = 0.0
+    for q in range(g):
+        total += cnts[q] * vals[q]
+        lg += cnts[q] * math.lgamma(vals[q] + 1.0)
+    if top >= 0:
+        # tails[i] = number of demands larger than i
+        above = float(k)
+        q = 0
+        for i in range(top):
+            while q < g and vals[q] <= i:
+                above -= cnts[q]
+                q += 1
+            tails[i] = above
     n0 = n - k
     pi = -1.0
     if n0 > 0 and total / k > 1.0 + _EPS:
-        mu, r = _fit_r(vals, cnts, k, n, total, True, st)
+        mu, r = _fit_r(vals, cnts, g, tails, top, k, n, total, True, st)
         pi = 1.0 - (k / n) / (-math.expm1(_log_p0(mu, r)))
     if pi <= 0.0:
         pi = 0.0
-        mu, r = _fit_r(vals, cnts, k, n, total, False, st)
-    ll = k * math.log1p(-pi) + _nb_positive_ll(vals, cnts, k, total, mu, r)
+        mu, r = _fit_r(vals, cnts, g, tails, top, k, n, total, False, st)
+    ratio = _gamma_ratio_sum(vals, cnts, g, tails, top, r)
+    ll = k * math.log1p(-pi) + ratio - lg + k * _log_p0(mu, r) \
+        + total * (math.log(mu) - math.log(r + mu))
     if n0 > 0:
         ll += n0 * math.log(pi + (1.0 - pi) * math.exp(_log_p0(mu, r)))
     return pi, mu, r, -ll / n
@@ -177,6 +241,13 @@ def zinb_item(size, n, st):
 @njit(cache=True, nogil=True)
 def _zi_panel(i0, i1, indptr, size, length, negative_binomial, out):
     st = np.empty(STATE_SIZE)
+    longest = _TABLE
+    for i in range(i0, i1):
+        longest = max(longest, indptr[i + 1] - indptr[i])
+    table = np.zeros(_TABLE + 1)
+    vals = np.empty(longest)
+    cnts = np.empty(longest)
+    tails = np.empty(longest)
     for i in range(i0, i1):
         n = length[i]
         if n == 0:
@@ -189,9 +260,9 @@ def _zi_panel(i0, i1, indptr, size, length, negative_binomial, out):
             continue
         s = size[indptr[i]:indptr[i + 1]]
         if negative_binomial:
-            pi, mu, r, c = zinb_item(s, n, st)
+            pi, mu, r, c = zinb_item(s, n, st, table, vals, cnts, tails)
         else:
-            pi, mu, c = zip_item(s, n)
+            pi, mu, c = zip_item(s, n, table, vals, cnts)
             r = np.nan
         out[0, i] = (1.0 - pi) * mu
         out[1, i] = c
