@@ -38,7 +38,8 @@ OPTIMISED = [
     ("croston", {"alpha": None}), ("sba", {"alpha": None}), ("ses", {"alpha": None}),
     ("tsb", {"alpha": None, "beta": 0.1}), ("tsb", {"alpha": None, "beta": None}),
     ("sba", {"alpha": None, "beta": None}), ("croston", {"alpha": None, "cost": "mar"}),
-    ("moving_average", {"window": None}), ("adida", {"alpha": None}), ("zinb", {}),
+    ("moving_average", {"window": None}), ("adida", {"alpha": None}),
+    ("imapa", {"alpha": None}), ("zinb", {}),
 ]
 
 COMPILE_SNIPPET = """
@@ -194,20 +195,29 @@ def main() -> None:
         "",
         "## Fixed-parameter kernels (events given)",
         "",
-        "| method | time (ms) | ratio to sum() | ratio incl. extraction |",
-        "| --- | ---: | ---: | ---: |",
-        *[f"| {label(n, o)} | {t * 1e3:.1f} | {t / t_sum:.2f} | {(t + t_ext) / t_sum:.2f} |"
-          for n, o, t in rows],
+        "Target: within 3x one sum() (events given).",
+        "",
+        "| method | time (ms) | ratio to sum() | ratio incl. extraction | target |",
+        "| --- | ---: | ---: | ---: | --- |",
+        *[f"| {label(n, o)} | {t * 1e3:.1f} | {t / t_sum:.2f} | {(t + t_ext) / t_sum:.2f} "
+          f"| {'met' if t / t_sum <= 3.0 else 'MISSED'} |" for n, o, t in rows],
         "",
         "## Optimised kernels (events given; target under 3 s)",
         "",
-        "| method | time (s) |",
-        "| --- | ---: |",
-        *[f"| {label(n, o)} | {t:.2f} |" for n, o, t in opt_rows],
+        "ZIP and ZINB have no smoothing constants: their parameters are always fitted by",
+        "maximum likelihood. ZIP's fit is a closed form plus a one-dimensional Newton",
+        "solve, so it is timed with the fixed-parameter kernels; ZINB searches its",
+        "dispersion by profile likelihood, so it is timed here.",
+        "",
+        "| method | time (s) | ratio to sum() | target |",
+        "| --- | ---: | ---: | --- |",
+        *[f"| {label(n, o)} | {t:.2f} | {t / t_sum:.1f} | {'met' if t < 3.0 else 'MISSED'} |"
+          for n, o, t in opt_rows],
         "",
         "## Compilation (all kernels, first calls, fresh process)",
         "",
-        f"- empty cache (compile everything): {cold:.1f} s",
+        f"- empty cache (compile everything): {cold:.1f} s "
+        f"({'met' if cold < 20.0 else 'MISSED'}: target under 20 s)",
         f"- warm cache (load compiled code): {warm:.1f} s",
         "",
     ]

@@ -145,8 +145,8 @@ def test_holdout_selection_is_taken_over_all_items(client, dataset, local_panel,
     local = forecast(panel, 7, selection="holdout", holdout=14, seed=SEED)
     out = tmp_path / "run"
     # by address, as a user points the engine at a running scheduler
-    run = run_distributed("forecast", dataset, out_dir=out, scheduler=client.scheduler.address, partitions=3,
-                          horizon=7, selection="holdout", holdout=14, columns=COLUMNS, seed=SEED)
+    run_distributed("forecast", dataset, out_dir=out, scheduler=client.scheduler.address, partitions=3,
+                    horizon=7, selection="holdout", holdout=14, columns=COLUMNS, seed=SEED)
     got = pd.read_parquet(out / "selection.parquet")
     pd.testing.assert_frame_equal(got, local.selection, check_dtype=False, rtol=1e-12)
     assert_same(out / "audit", local.audit, ["item"], tmp_path)

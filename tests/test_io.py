@@ -15,7 +15,6 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from sparsedemand.errors import InputError
 from sparsedemand.io import (
     Columns,
     from_frame,

@@ -93,6 +93,15 @@ def _croston_reference(y, a):
     return f
 
 
+def _moving_average_reference(y, w):
+    # forecast for t: mean of the min(w, t) periods before it (common practice)
+    f = np.empty(len(y))
+    f[0] = y[0]
+    for t in range(1, len(y)):
+        f[t] = y[max(0, t - w):t].mean()
+    return f
+
+
 @pytest.mark.parametrize("cost", ["mse", "mae", "mar", "msr"])
 def test_event_costs_equal_period_by_period_costs(cost):
     # the kernels sum whole runs of zeros in closed form; a plain loop over periods must agree
@@ -107,6 +116,10 @@ def test_event_costs_equal_period_by_period_costs(cost):
         assert got == pytest.approx(want, rel=1e-9, abs=1e-12)
         want = _brute_costs(y, _croston_reference(y, a))[cost]
         got = M.croston(y, alpha=a, cost=cost, return_params=True)[2]
+        assert got == pytest.approx(want, rel=1e-9, abs=1e-12)
+        w = int(rng.integers(1, 12))
+        want = _brute_costs(y, _moving_average_reference(y, w))[cost]
+        got = M.moving_average(y, window=w, cost=cost, return_params=True)[2]
         assert got == pytest.approx(want, rel=1e-9, abs=1e-12)
 
 

@@ -6,7 +6,6 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sparsedemand.errors import InputError
 from sparsedemand.panel import DemandPanel, as_panel, first_demand_offsets
 
 

@@ -102,8 +102,10 @@ LANES = 4  # levels advanced together in one read of the events
 
 @njit(cache=True, nogil=True, inline="always")
 def _bucket_of(t, shift, inv):
-    # floor((t - offset + 0.5) / level): exact for integer t, -1 before the offset
-    return np.floor((t + shift) * inv)
+    # floor((t - offset + 0.5) / level), with shift = (0.5 - offset) / level: exact for
+    # integer t (the 0.5 keeps every value at least 0.5 / level from an integer), and -1
+    # before the offset
+    return np.floor(t * inv + shift)
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -148,8 +150,8 @@ def _levels_forecast(method, pos, size, n, levels, alpha, factor, rpow, lane, st
     for g in range(LANES):
         lv = levels[g]
         offset = n - (n // lv) * lv
-        shift[g] = 0.5 - offset
         inv[g] = 1.0 / lv
+        shift[g] = (0.5 - offset) * inv[g]
         j = 0
         while j < k and pos[j] < offset:
             j += 1
@@ -175,10 +177,13 @@ def _levels_forecast(method, pos, size, n, levels, alpha, factor, rpow, lane, st
     v0, v1, v2, v3 = inv[0], inv[1], inv[2], inv[3]
     z0, z1, z2, z3 = z[0], z[1], z[2], z[3]
     b0, b1, b2, b3 = cur[0], cur[1], cur[2], cur[3]
+    # slices from the common start, so the loop index is known to be non-negative
+    tail_pos = pos[common:]
+    tail_size = size[common:]
     if ses:
-        for j in range(common, k):
-            t = float(pos[j])
-            ay = alpha * size[j]
+        for j in range(tail_pos.shape[0]):
+            t = float(tail_pos[j])
+            ay = alpha * tail_size[j]
             z0, b0 = _ses_step(t, ay, rpow, h0, v0, z0, b0)
             z1, b1 = _ses_step(t, ay, rpow, h1, v1, z1, b1)
             z2, b2 = _ses_step(t, ay, rpow, h2, v2, z2, b2)
@@ -186,9 +191,9 @@ def _levels_forecast(method, pos, size, n, levels, alpha, factor, rpow, lane, st
     else:
         x0, x1, x2, x3 = x[0], x[1], x[2], x[3]
         d0, d1, d2, d3 = disc[0], disc[1], disc[2], disc[3]
-        for j in range(common, k):
-            t = float(pos[j])
-            ay = alpha * size[j]
+        for j in range(tail_pos.shape[0]):
+            t = float(tail_pos[j])
+            ay = alpha * tail_size[j]
             z0, x0, d0, b0 = _croston_step(t, ay, r, h0, v0, z0, x0, d0, b0)
             z1, x1, d1, b1 = _croston_step(t, ay, r, h1, v1, z1, x1, d1, b1)
             z2, x2, d2, b2 = _croston_step(t, ay, r, h2, v2, z2, x2, d2, b2)

@@ -34,7 +34,7 @@ from ._input import (
     check_cost,
     run_public,
 )
-from .optimize import MAE, MAR, MSE, MSR, finish_cost, point_error, run_constant
+from .optimize import MAE, MSE, finish_cost, point_error, run_constant
 
 __all__ = ["croston", "sba", "sbj", "croston_item", "bias_factor", "SAME"]
 
@@ -52,7 +52,7 @@ def bias_factor(code, beta):
     return 1.0
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=True, nogil=True, fastmath={"contract"})
 def _croston_run(pos, size, n, alpha, beta, c, cost_code):
     # ``z + a (y - z)`` is computed as ``(1 - a) z + a y``: equal up to rounding, and the
     # running state then waits on one multiply-add per demand instead of three steps
@@ -87,15 +87,7 @@ def _croston_run(pos, size, n, alpha, beta, c, cost_code):
 @njit(cache=True, nogil=True, fastmath={"contract"})
 def croston_item(pos, size, n, alpha, beta, factor_code, cost_code):
     """One item: (forecast, in-sample cost, final size z, final interval x)."""
-    c = bias_factor(factor_code, beta)
-    # one specialised loop per cost (the constant folds into the inlined loop)
-    if cost_code == MSE:
-        return _croston_run(pos, size, n, alpha, beta, c, MSE)
-    if cost_code == MAE:
-        return _croston_run(pos, size, n, alpha, beta, c, MAE)
-    if cost_code == MAR:
-        return _croston_run(pos, size, n, alpha, beta, c, MAR)
-    return _croston_run(pos, size, n, alpha, beta, c, MSR)
+    return _croston_run(pos, size, n, alpha, beta, bias_factor(factor_code, beta), cost_code)
 
 
 def fit_croston_family(

@@ -40,6 +40,8 @@ __all__ = ["Events", "extract_events", "size_moments", "run_in_threads", "worker
 
 # below this many items a second thread costs more than it saves
 _THREAD_MIN_ITEMS = 2048
+_BLOCKS_PER_THREAD = 8
+_BLOCK_MIN_ITEMS = 512
 
 
 class Events(NamedTuple):
@@ -63,6 +65,9 @@ class Events(NamedTuple):
         Available periods over the whole row, leading zeros included.
     n_periods : int
         Columns of the panel the events came from.
+    size_mean, size_var : ndarray of float64, shape (n_items,)
+        Mean and variance (ddof 0) of each item's sizes (0 for an item without
+        demand), taken while the sizes are written.
     """
 
     indptr: np.ndarray
@@ -72,6 +77,8 @@ class Events(NamedTuple):
     first: np.ndarray
     n_available: np.ndarray
     n_periods: int
+    size_mean: np.ndarray
+    size_var: np.ndarray
 
     @property
     def n_items(self) -> int:
@@ -92,20 +99,23 @@ def worker_count() -> int:
 
 
 def run_in_threads(kernel, n_items: int, *args) -> None:
-    """Run ``kernel(i0, i1, *args)`` over item ranges, one range per core.
+    """Run ``kernel(i0, i1, *args)`` over item ranges on one thread per core.
 
     Kernels are compiled with ``nogil=True`` and write disjoint rows of their
     output arrays, so plain threads parallelise them without numba's parallel
-    back end (which would add compile time and its own thread pool).
+    back end (which would add compile time and its own thread pool). The items
+    are cut into a few blocks per thread and handed out as threads free up, so
+    a core slowed by other work does not hold the rest back.
     """
     workers = min(worker_count(), max(1, n_items // _THREAD_MIN_ITEMS))
     if workers <= 1:
         kernel(0, n_items, *args)
         return
-    bounds = np.linspace(0, n_items, workers + 1).astype(np.int64)
+    blocks = max(workers, min(workers * _BLOCKS_PER_THREAD, n_items // _BLOCK_MIN_ITEMS))
+    bounds = np.linspace(0, n_items, blocks + 1).astype(np.int64)
     with ThreadPoolExecutor(max_workers=workers) as pool:
         futures = [
-            pool.submit(kernel, int(bounds[w]), int(bounds[w + 1]), *args) for w in range(workers)
+            pool.submit(kernel, int(bounds[b]), int(bounds[b + 1]), *args) for b in range(blocks)
         ]
         for fut in futures:
             fut.result()
@@ -204,11 +214,14 @@ def _fill_masked(seg, m, pos, size):
 
 
 @njit(cache=True, nogil=True)
-def _fill_kernel(i0, i1, values, available, has_mask, first, last, indptr, pos, size):
+def _fill_kernel(i0, i1, values, available, has_mask, first, last, indptr, pos, size,
+                 size_mean, size_var):
     for i in range(i0, i1):
         lo = indptr[i]
         hi = indptr[i + 1]
         if hi == lo:
+            size_mean[i] = 0.0
+            size_var[i] = 0.0
             continue
         j0 = first[i]
         j1 = last[i] + 1
@@ -216,6 +229,21 @@ def _fill_kernel(i0, i1, values, available, has_mask, first, last, indptr, pos, 
             _fill_masked(values[i, j0:j1], available[i, j0:j1], pos[lo:hi], size[lo:hi])
         else:
             _fill_plain(values[i, j0:j1], pos[lo:hi], size[lo:hi])
+        # the item's sizes are still in cache: their moments cost next to nothing here
+        size_mean[i], size_var[i] = _moments(size[lo:hi])
+
+
+@njit(cache=True, nogil=True)
+def _moments(s):
+    total = 0.0
+    for k in range(s.shape[0]):
+        total += s[k]
+    mu = total / s.shape[0]
+    q = 0.0
+    for k in range(s.shape[0]):
+        d = s[k] - mu
+        q += d * d
+    return mu, q / s.shape[0]
 
 
 _NO_MASK = np.ones((1, 1), dtype=np.bool_)
@@ -281,31 +309,14 @@ def extract_events(
     # allocated by numpy, not inside numba, so that large buffers get huge pages
     pos = np.empty(n_events, np.int64)
     size = np.empty(n_events, np.float64)
+    size_mean = np.empty(n_items)
+    size_var = np.empty(n_items)
     run_in_threads(
-        _fill_kernel, n_items, values, mask, has_mask, first, last, indptr, pos, size
+        _fill_kernel, n_items, values, mask, has_mask, first, last, indptr, pos, size,
+        size_mean, size_var,
     )
-    return Events(indptr, pos, size, length, first, n_avail, values.shape[1])
-
-
-@njit(cache=True, nogil=True)
-def _moments_kernel(indptr, size, mean, var):
-    for i in range(indptr.shape[0] - 1):
-        lo = indptr[i]
-        hi = indptr[i + 1]
-        if hi == lo:
-            mean[i] = 0.0
-            var[i] = 0.0
-            continue
-        s = 0.0
-        for k in range(lo, hi):
-            s += size[k]
-        mu = s / (hi - lo)
-        q = 0.0
-        for k in range(lo, hi):
-            d = size[k] - mu
-            q += d * d
-        mean[i] = mu
-        var[i] = q / (hi - lo)
+    return Events(indptr, pos, size, length, first, n_avail, values.shape[1], size_mean,
+                  size_var)
 
 
 def size_moments(events: Events) -> tuple[np.ndarray, np.ndarray]:
@@ -316,7 +327,4 @@ def size_moments(events: Events) -> tuple[np.ndarray, np.ndarray]:
     >>> size_moments(extract_events(np.array([[1., 0., 3.]])))
     (array([2.]), array([1.]))
     """
-    mean = np.empty(events.n_items)
-    var = np.empty(events.n_items)
-    _moments_kernel(events.indptr, events.size, mean, var)
-    return mean, var
+    return events.size_mean, events.size_var

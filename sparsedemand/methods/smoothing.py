@@ -36,7 +36,7 @@ from ._input import (
     run_public,
 )
 from .events import run_in_threads
-from .optimize import MAE, MAR, MSE, MSR, fill_powers, finish_cost, geometric_sums, point_error, run_constant, run_geometric
+from .optimize import MSE, fill_powers, finish_cost, geometric_sums, point_error, run_constant, run_geometric
 
 __all__ = ["ses", "moving_average", "ses_item", "ma_item", "window_mean"]
 
@@ -99,39 +99,45 @@ def _ma_run(pos, size, n, w, cost_code):
     while i_in < k and pos[i_in] < t:
         s += size[i_in]
         i_in += 1
-    # full windows: the forecast is constant until a demand enters or leaves the window;
-    # the demands i_out .. i_in-1 are inside, and only the next one to enter can fall in
-    # the current run (as its last period)
-    while t < n:
-        enter = pos[i_in] + 1 if i_in < k else n + 1
-        leave = pos[i_out] + w + 1 if i_out < i_in else n + 1
-        nxt = min(enter, leave, n)
-        f = max(s, 0.0) / w
-        if enter == nxt:
-            acc, cum = run_constant(cost_code, acc, cum, f, nxt - t - 1)
-            acc, cum = point_error(cost_code, acc, cum, size[i_in] - f)
-            s += size[i_in]
-            i_in += 1
-        else:
-            acc, cum = run_constant(cost_code, acc, cum, f, nxt - t)
-        if leave == nxt:
+    # full windows: the forecast is constant until a demand enters or leaves the window.
+    # Demands i_out .. i_in-1 are inside; before demand i_in is observed (at its own
+    # period) the demands that leave first each close a run of zeros.
+    inv_w = 1.0 / w
+    while i_in < k:
+        p_in = pos[i_in]
+        while i_out < i_in and pos[i_out] + w < p_in:
+            leave = pos[i_out] + w + 1
+            acc, cum = run_constant(cost_code, acc, cum, max(s, 0.0) * inv_w, leave - t)
             s -= size[i_out]
             i_out += 1
-        t = nxt
+            t = leave
+        f = max(s, 0.0) * inv_w
+        acc, cum = run_constant(cost_code, acc, cum, f, p_in - t)
+        acc, cum = point_error(cost_code, acc, cum, size[i_in] - f)
+        s += size[i_in]
+        i_in += 1
+        t = p_in + 1
+        if i_out < i_in and pos[i_out] + w + 1 == t:
+            s -= size[i_out]
+            i_out += 1
+    # no demand left to enter: the remaining ones leave, then zeros to the end
+    while t < n:
+        leave = pos[i_out] + w + 1 if i_out < i_in else n
+        leave = min(leave, n)
+        acc, cum = run_constant(cost_code, acc, cum, max(s, 0.0) * inv_w, leave - t)
+        if i_out < i_in:
+            s -= size[i_out]
+            i_out += 1
+        t = leave
     return window_mean(pos, size, n, w), finish_cost(acc, n - 1)
 
 
 @njit("UniTuple(float64, 2)(int64[::1], float64[::1], int64, int64, int64)", cache=True, nogil=True)
 def ma_item(pos, size, n, w, cost_code):
     """One item: (forecast, in-sample cost) of the moving average of order ``w``."""
-    # one specialised loop per cost (the constant folds into the inlined loop)
-    if cost_code == MSE:
+    if cost_code == MSE:  # the default and the sigma: a copy with the cost folded in
         return _ma_run(pos, size, n, w, MSE)
-    if cost_code == MAE:
-        return _ma_run(pos, size, n, w, MAE)
-    if cost_code == MAR:
-        return _ma_run(pos, size, n, w, MAR)
-    return _ma_run(pos, size, n, w, MSR)
+    return _ma_run(pos, size, n, w, cost_code)
 
 
 @njit(cache=True, nogil=True)

@@ -138,15 +138,35 @@ def _size_summary(size, table, vals, cnts):
                 g += 1
                 table[v] = 0.0
         return g, top
-    srt = np.sort(size)
-    for j in range(k):
-        if g > 0 and srt[j] == vals[g - 1]:
+    for j in range(k):  # a loop: array slice assignment costs seconds of compile time
+        vals[j] = size[j]
+    _shell_sort(vals, k)
+    for j in range(k):  # group in place: g <= j
+        v = vals[j]
+        if g > 0 and v == vals[g - 1]:
             cnts[g - 1] += 1.0
         else:
-            vals[g] = srt[j]
+            vals[g] = v
             cnts[g] = 1.0
             g += 1
     return g, -1
+
+
+@njit(cache=True, nogil=True)
+def _shell_sort(a, k):
+    # in place, a[:k]; numba's np.sort would add seconds of first-run compile time
+    gap = 1
+    while gap < k // 3:
+        gap = 3 * gap + 1
+    while gap > 0:
+        for i in range(gap, k):
+            v = a[i]
+            j = i
+            while j >= gap and a[j - gap] > v:
+                a[j] = a[j - gap]
+                j -= gap
+            a[j] = v
+        gap //= 3
 
 
 @njit(cache=True, nogil=True)
