@@ -74,6 +74,7 @@ from numba import njit
 from scipy.special import ndtr
 
 from ..errors import InputError
+from .events import run_in_threads
 
 __all__ = [
     "KINDS",
@@ -816,32 +817,33 @@ def _bootstrap_rows(values, rows, start, available, has_mask, checks: np.ndarray
     return out
 
 
-@njit(cache=True)
-def _scan_history(values, available, has_mask, rows, size_mean, first):
-    """One pass over the history rows of the items: first bad cell, mean size, first demand.
+@njit(cache=True, nogil=True)
+def _scan_history(i0, i1, values, available, has_mask, rows, size_mean, first, bad):
+    """One pass over the history rows of items ``i0 .. i1-1``: mean size, first demand.
 
-    Returns ``(row, period)`` of the first available value that is negative
-    or not finite, ``(-1, -1)`` when all are valid.
+    ``bad[i]`` gets the first period of the item's row whose available value
+    is negative or not finite, -1 when all are valid.
     """
     n_periods = values.shape[1]
-    for i in range(rows.shape[0]):
+    for i in range(i0, i1):
         h = rows[i]
         total = 0.0
         count = 0
         first[i] = n_periods
+        bad[i] = -1
         for t in range(n_periods):
             if has_mask and not available[h, t]:
                 continue
             v = values[h, t]
             if not (v >= 0.0 and v < np.inf):
-                return h, t
+                bad[i] = t
+                break
             if v > 0.0:
                 if count == 0:
                     first[i] = t
                 total += v
                 count += 1
         size_mean[i] = total / count if count > 0 else np.nan
-    return -1, -1
 
 
 def _history(values, start, available, history_rows, n_items: int):
@@ -869,9 +871,12 @@ def _history(values, start, available, history_rows, n_items: int):
         available = np.ones((1, 1), dtype=np.bool_)
     sizes = np.empty(n_items)
     first = np.empty(n_items, dtype=np.int64)
+    bad = np.empty(n_items, dtype=np.int64)
     # values where the item was unavailable are never read
-    h, t = _scan_history(values, available, has_mask, rows, sizes, first)
-    if h >= 0:
+    run_in_threads(_scan_history, n_items, values, available, has_mask, rows, sizes, first, bad)
+    faulty = np.flatnonzero(bad >= 0)
+    if faulty.size:
+        h, t = int(rows[faulty[0]]), int(bad[faulty[0]])
         raise InputError(f"values must be finite and >= 0, got {values[h, t]!r} for row {h}, period {t}")
     if start is None:
         item_start = first
