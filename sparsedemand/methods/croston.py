@@ -53,9 +53,11 @@ def bias_factor(code, beta):
 
 
 @njit(cache=True, nogil=True, fastmath={"contract"})
-def _croston_run(pos, size, n, alpha, beta, c, cost_code):
+def croston_item(pos, size, n, alpha, beta, factor_code, cost_code):
+    """One item: (forecast, in-sample cost, final size z, final interval x)."""
     # ``z + a (y - z)`` is computed as ``(1 - a) z + a y``: equal up to rounding, and the
     # running state then waits on one multiply-add per demand instead of three steps
+    c = bias_factor(factor_code, beta)
     k = pos.shape[0]
     z = size[0]
     x = float(pos[1] - pos[0]) if k > 1 else 1.0
@@ -82,12 +84,6 @@ def _croston_run(pos, size, n, alpha, beta, c, cost_code):
         f = c * z / x
     acc, cum = run_constant(cost_code, acc + acc_runs, cum, f, n - 1 - pos[k - 1])
     return f, finish_cost(acc, n - 1), z, x
-
-
-@njit(cache=True, nogil=True, fastmath={"contract"})
-def croston_item(pos, size, n, alpha, beta, factor_code, cost_code):
-    """One item: (forecast, in-sample cost, final size z, final interval x)."""
-    return _croston_run(pos, size, n, alpha, beta, bias_factor(factor_code, beta), cost_code)
 
 
 def fit_croston_family(

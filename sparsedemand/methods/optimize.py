@@ -130,7 +130,7 @@ def run_constant(code, acc, cum, f, m):
     The cumulative error after ``k`` of them is ``cum - k f``.
     """
     mf = float(max(m, 0))
-    # with m = 0 every branch adds nothing, so short runs need no test of their own
+    # the MSE and MAE terms vanish for m = 0, so these common cases need no test on m
     if code == MSE:
         return acc + mf * f * f, cum - mf * f
     if code == MAE:

@@ -64,11 +64,7 @@ def zip_item(size, n, table, vals, cnts):
     """
     k = size.shape[0]
     g, _ = _size_summary(size, table, vals, cnts)
-    total = 0.0
-    lg = 0.0
-    for q in range(g):
-        total += cnts[q] * vals[q]
-        lg += cnts[q] * math.lgamma(vals[q] + 1.0)
+    total, lg = _grouped_totals(vals, cnts, g)
     n0 = n - k
     pi = 0.0
     lam = total / n
@@ -153,6 +149,17 @@ def _size_summary(size, table, vals, cnts):
 
 
 @njit(cache=True, nogil=True)
+def _grouped_totals(vals, cnts, g):
+    # (sum of the sizes, sum of lgamma(size + 1)) from the distinct sizes and their counts
+    total = 0.0
+    lg = 0.0
+    for q in range(g):
+        total += cnts[q] * vals[q]
+        lg += cnts[q] * math.lgamma(vals[q] + 1.0)
+    return total, lg
+
+
+@njit(cache=True, nogil=True)
 def _shell_sort(a, k):
     # in place, a[:k]; numba's np.sort would add seconds of first-run compile time
     gap = 1
@@ -186,6 +193,13 @@ def _gamma_ratio_sum(vals, cnts, g, tails, top, r):
 
 
 @njit(cache=True, nogil=True)
+def _nb_positive_ll(ratio, k, total, mu, r, lp0):
+    # log-likelihood of the k positive demands under the untruncated NB(mu, r), without the
+    # constant sum of lgamma(y + 1); ``ratio`` from _gamma_ratio_sum, ``lp0`` = log P(0)
+    return ratio + k * lp0 + total * (math.log(mu) - math.log(r + mu))
+
+
+@njit(cache=True, nogil=True)
 def _profile(vals, cnts, g, tails, top, k, n, total, truncated, r, mu0):
     # (mu, negative profile log-likelihood at r without the constant sum of lgamma(y + 1)):
     # truncated positives, or plain NB on all n periods
@@ -193,11 +207,10 @@ def _profile(vals, cnts, g, tails, top, k, n, total, truncated, r, mu0):
     if truncated:
         mu = _truncated_nb_mean(total / k, r, mu0)
         lp0 = _log_p0(mu, r)
-        ll = ratio + k * lp0 + total * (math.log(mu) - math.log(r + mu))
-        return mu, -(ll - k * math.log(-math.expm1(lp0)))
+        return mu, -(_nb_positive_ll(ratio, k, total, mu, r, lp0) - k * math.log(-math.expm1(lp0)))
     mu = total / n
-    ll = ratio + k * _log_p0(mu, r) + total * (math.log(mu) - math.log(r + mu))
-    return mu, -(ll + (n - k) * _log_p0(mu, r))
+    lp0 = _log_p0(mu, r)
+    return mu, -(_nb_positive_ll(ratio, k, total, mu, r, lp0) + (n - k) * lp0)
 
 
 @njit(cache=True, nogil=True)
@@ -228,11 +241,7 @@ def zinb_item(size, n, st, table, vals, cnts, tails):
     """
     k = size.shape[0]
     g, top = _size_summary(size, table, vals, cnts)
-    total = 0.0
-    lg = 0.0
-    for q in range(g):
-        total += cnts[q] * vals[q]
-        lg += cnts[q] * math.lgamma(vals[q] + 1.0)
+    total, lg = _grouped_totals(vals, cnts, g)
     if top >= 0:
         # tails[i] = number of demands larger than i
         above = float(k)
@@ -251,10 +260,10 @@ def zinb_item(size, n, st, table, vals, cnts, tails):
         pi = 0.0
         mu, r = _fit_r(vals, cnts, g, tails, top, k, n, total, False, st)
     ratio = _gamma_ratio_sum(vals, cnts, g, tails, top, r)
-    ll = k * math.log1p(-pi) + ratio - lg + k * _log_p0(mu, r) \
-        + total * (math.log(mu) - math.log(r + mu))
+    lp0 = _log_p0(mu, r)
+    ll = k * math.log1p(-pi) + _nb_positive_ll(ratio, k, total, mu, r, lp0) - lg
     if n0 > 0:
-        ll += n0 * math.log(pi + (1.0 - pi) * math.exp(_log_p0(mu, r)))
+        ll += n0 * math.log(pi + (1.0 - pi) * math.exp(lp0))
     return pi, mu, r, -ll / n
 
 
