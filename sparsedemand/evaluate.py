@@ -98,7 +98,7 @@ from .route import (
     rate_change,
 )
 from .simulate import simulate_order_up_to
-from .stock import _label_seeds
+from .methods.forecasts import label_seeds
 
 __all__ = [
     "BASELINES",
@@ -821,7 +821,7 @@ def backtest(
     if isinstance(overrides, (str, os.PathLike)):
         overrides = load_overrides(overrides)
     groups = _group_labels(panel, group_levels)
-    seeds = _label_seeds(panel.items, int(seed))  # per label: independent of row order and grouping
+    seeds = label_seeds(panel.items, int(seed))  # per label: independent of row order and grouping
     names = metric_names(lv)
     scored = [*plan, *([ROUTER] if include_router else [])]
     totals = {m: _Totals(panel.n_items, names, kinds) for m in scored}

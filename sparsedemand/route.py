@@ -662,7 +662,7 @@ class ForecastResult:
 
     def item_forecasts(self):
         """Means and predictive distributions of every item, for the stock stage."""
-        from .stock import gather_forecasts
+        from .methods.forecasts import gather_forecasts
 
         return gather_forecasts([(rows, fitted) for rows, _, fitted in self.groups], self.panel.n_items)
 
@@ -734,14 +734,14 @@ def _fit_with_fallback(panel: DemandPanel, rows: np.ndarray, rule: Rule, horizon
 
 def _quantiles_for(panel, rows, fitted, levels, seed) -> np.ndarray:
     """(n_rows, horizon, n_levels) quantiles of one-period demand per step."""
-    from .stock import _label_seeds
+    from .methods.forecasts import label_seeds
 
     horizon = fitted.mean.shape[1]
     out = np.empty((len(rows), horizon, len(levels)))
     # the bootstrap and a flat mean give the same distribution at every step
     flat = horizon == 1 or fitted.distribution == "empirical" or np.allclose(fitted.mean, fitted.mean[:, :1])
     steps = [0] if flat else range(horizon)
-    seeds = _label_seeds(panel.items[rows], seed)
+    seeds = label_seeds(panel.items[rows], seed)
     for step in steps:
         # ragged rows, each as long as its own item needs: one high-volume item no longer
         # pads every row of its group to its width

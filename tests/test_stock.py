@@ -9,10 +9,9 @@ import pandas as pd
 import pytest
 from scipy import integrate, stats
 
+from sparsedemand.methods.forecasts import ItemForecasts, gather_forecasts
 from sparsedemand.stock import (
     STOCK_CAUTION,
-    ItemForecasts,
-    gather_forecasts,
     normal_loss,
     stock_targets,
     stock_totals,
