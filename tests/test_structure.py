@@ -12,11 +12,13 @@ MAX_FUNCTION_LINES = 100
 MAX_MODULE_LINES = 650  # "about 600": a little slack so one docstring does not force a split
 
 # The pipeline's order; a module may import only from its own stage or an earlier one.
-# io and panel are one stage (io builds panels); metrics are pure scoring functions that the
-# router's holdout selection and the backtest both use.
+# io and panel are one stage (io builds panels); calendar profiles scale the methods' levels;
+# metrics are pure scoring functions that the router's holdout selection and the backtest both
+# use; the budget allocation is part of the stock stage.
 STAGES = [
-    ("errors", "_version"), ("io", "panel"), ("classify",), ("methods",), ("metrics",), ("route",),
-    ("evaluate",), ("stock",), ("runs",), ("report",), ("engine", "cli", "demo"),
+    ("errors", "_version"), ("io", "panel"), ("classify",), ("methods",), ("profiles",),
+    ("metrics",), ("route",), ("evaluate",), ("stock", "budget"), ("runs",), ("report",),
+    ("engine", "cli", "demo"),
 ]
 _STAGE_OF = {name: i for i, names in enumerate(STAGES) for name in names}
 
