@@ -933,7 +933,7 @@ def _hierarchy_levels(train: DemandPanel, groups: dict, weights: np.ndarray) -> 
     method scored at the origin shares them; this uses the metric module's own
     kernels, and the tests check the result against ``hierarchical_rmsse``.
     """
-    from .metrics import _group_scale_kernel, _history, _membership  # the metric's own kernels
+    from .metrics.hierarchy import _group_scale_kernel, _history, _membership  # the metric's own kernels
 
     hist = _history(train.values, train.available, allow_1d=False)
     total = weights.sum()
@@ -955,7 +955,8 @@ def _hierarchy(ctx: _Origin, fc: OriginForecast) -> pd.Series:
     the level's weights renormalised; levels with no defined group left out
     of the mean).
     """
-    from .metrics import _masked_mean, _per_scale
+    from .metrics.holdout import _masked_mean
+    from .metrics.scale import _per_scale
 
     if not ctx.hierarchy:
         return pd.Series({level: np.nan for level in [*ctx.groups, "all"]})
