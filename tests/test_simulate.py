@@ -9,7 +9,7 @@ from hypothesis import strategies as st
 from scipy import stats
 
 from sparsedemand.errors import InputError
-from sparsedemand.simulate import review_periods, simulate_order_up_to
+from sparsedemand.evaluate.simulate import review_periods, simulate_order_up_to
 
 
 def test_exact_cover_gives_full_service():

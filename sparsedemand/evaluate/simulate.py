@@ -47,7 +47,7 @@ import numpy.typing as npt
 import pandas as pd
 from numba import njit
 
-from .errors import InputError
+from ..errors import InputError
 
 __all__ = ["StockSimulation", "simulate_order_up_to", "review_periods"]
 
@@ -198,6 +198,47 @@ def _levels(order_up_to, n_items: int, n_periods: int, review: int) -> np.ndarra
     return np.ascontiguousarray(s)
 
 
+def _check_demand(demand) -> np.ndarray:
+    """Demand as a C float64 (items, periods) array; NaN allowed, negative or infinite not."""
+    d = np.asarray(demand, dtype=np.float64)
+    if d.ndim == 1:
+        d = d[None, :]
+    if d.ndim != 2 or d.shape[1] == 0:
+        raise InputError(f"demand: expected a non-empty 1-D series or 2-D items x periods array, got shape {np.shape(demand)}")
+    d = np.ascontiguousarray(d)
+    if np.isinf(d).any() or (d < 0).any():
+        i, t = np.argwhere(np.isinf(d) | (d < 0))[0]
+        raise InputError(f"demand: negative or infinite value at {_item_label(i)}, period {t}")
+    return d
+
+
+def _check_available(available, shape: tuple[int, int]) -> np.ndarray:
+    """Availability flags as a bool array of the demand's shape."""
+    flags = np.asarray(available)
+    if flags.ndim == 1:
+        flags = flags[None, :]
+    if flags.shape != shape:
+        raise InputError(f"available: mask has shape {np.shape(available)}, demand has {shape}")
+    if flags.dtype != np.bool_:
+        if not np.isin(flags, (0, 1)).all():
+            raise InputError("available: availability flags must be boolean (or 0/1)")
+        flags = flags.astype(np.bool_)
+    return flags
+
+
+def _check_initial(initial_stock, n_items: int) -> np.ndarray:
+    """Starting stock per item (a scalar applies to every item)."""
+    initial = np.asarray(initial_stock, dtype=np.float64).ravel()
+    if initial.size == 1:
+        initial = np.full(n_items, float(initial[0]))
+    if initial.shape != (n_items,):
+        raise InputError(f"initial_stock: {initial.size} values for {n_items} items")
+    if not np.isfinite(initial).all() or (initial < 0).any():
+        i = int(np.flatnonzero(~np.isfinite(initial) | (initial < 0))[0])
+        raise InputError(f"initial_stock: missing or negative value for {_item_label(i)}")
+    return initial
+
+
 def simulate_order_up_to(
     demand: npt.ArrayLike,
     order_up_to: npt.ArrayLike,
@@ -252,40 +293,13 @@ def simulate_order_up_to(
         raise InputError(f"unmet: must be one of {', '.join(_UNMET)}, got {unmet!r}")
     review = _check_whole("review", review, minimum=1)
     lead = _check_whole("lead_time", lead_time, minimum=0)
-    d = np.asarray(demand, dtype=np.float64)
-    if d.ndim == 1:
-        d = d[None, :]
-    if d.ndim != 2 or d.shape[1] == 0:
-        raise InputError(f"demand: expected a non-empty 1-D series or 2-D items x periods array, got shape {np.shape(demand)}")
-    d = np.ascontiguousarray(d)
+    d = _check_demand(demand)
     n_items, n_periods = d.shape
-    if np.isinf(d).any() or (d < 0).any():
-        i, t = np.argwhere(np.isinf(d) | (d < 0))[0]
-        raise InputError(f"demand: negative or infinite value at {_item_label(i)}, period {t}")
     scored = np.isfinite(d)
     if available is not None:
-        flags = np.asarray(available)
-        if flags.ndim == 1:
-            flags = flags[None, :]
-        if flags.shape != d.shape:
-            raise InputError(f"available: mask has shape {np.shape(available)}, demand has {d.shape}")
-        if flags.dtype != np.bool_:
-            if not np.isin(flags, (0, 1)).all():
-                raise InputError("available: availability flags must be boolean (or 0/1)")
-            flags = flags.astype(np.bool_)
-        scored &= flags
+        scored &= _check_available(available, d.shape)
     level = _levels(order_up_to, n_items, n_periods, review)
-    if initial_stock is None:
-        initial = level[:, 0].copy()
-    else:
-        initial = np.asarray(initial_stock, dtype=np.float64).ravel()
-        if initial.size == 1:
-            initial = np.full(n_items, float(initial[0]))
-        if initial.shape != (n_items,):
-            raise InputError(f"initial_stock: {initial.size} values for {n_items} items")
-        if not np.isfinite(initial).all() or (initial < 0).any():
-            i = int(np.flatnonzero(~np.isfinite(initial) | (initial < 0))[0])
-            raise InputError(f"initial_stock: missing or negative value for {_item_label(i)}")
+    initial = level[:, 0].copy() if initial_stock is None else _check_initial(initial_stock, n_items)
 
     served, total, on_hand, stockouts, orders, n_scored, n_cycles, n_good = _simulate_kernel(
         d, np.ascontiguousarray(scored), level, initial, np.int64(review), np.int64(lead), unmet == "backorder"
