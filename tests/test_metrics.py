@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import properscoring
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -209,7 +210,6 @@ def test_coverage_of_true_quantiles_is_near_the_level():
 def test_quantile_crps_matches_the_normal_closed_form_and_properscoring():
     # CRPS of N(mu, sigma^2) at y (Gneiting & Raftery 2007, JASA 102:359-378, eq. 5):
     # sigma * (z (2 Phi(z) - 1) + 2 phi(z) - 1/sqrt(pi)), z = (y - mu) / sigma
-    properscoring = pytest.importorskip("properscoring")
     mu, sigma = 4.0, 1.5
     y = np.array([1.0, 4.0, 4.7, 9.0])
     z = (y - mu) / sigma
