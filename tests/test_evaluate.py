@@ -285,7 +285,8 @@ def test_pooled_over_origins_and_hierarchy_levels():
     panel = small_mix(stockout=False)
     res = backtest(panel, holdout=5, origins=3, methods=["ses"], include_router=False)
     part = res.item_scores[res.item_scores["method"] == "ses"]
-    # the same items and patterns at every origin: the pooled mean is the mean of the item means
+    # consistency checks (package against package): the same items and patterns at every origin,
+    # so the pooled mean is the mean of the item means
     assert (res.patterns.nunique(axis=1) == 1).all()
     assert res.value("ses", "rmsse") == pytest.approx(part["rmsse"].mean())
     levels = res.scores[res.scores["metric"] == "weighted_rmsse"]
