@@ -106,19 +106,60 @@ def test_normal_approximation_matches_scipy_quantiles():
 
 
 # ----------------------------------------------------------------------------- closed forms
+def _one_period_pmf(p, size_pmf):
+    """Demand of one period: 0 with probability 1 - p, else a size drawn from ``size_pmf`` (k = 0, 1, ...)."""
+    out = p * np.asarray(size_pmf, float)
+    out[0] += 1 - p
+    return out
+
+
+def _n_fold(pmf, n):
+    out = np.array([1.0])
+    for _ in range(n):
+        out = np.convolve(out, pmf)
+    return out
+
+
 def test_compound_mean_and_variance_closed_forms():
-    # random sum of n Bernoulli(p) x S periods: E = n p mu_S, Var = n p sigma_S^2 + n p (1-p) mu_S^2
-    # (law of total variance; e.g. Ross 2014, Introduction to Probability Models, 11th ed., ch. 3)
-    p = np.array([0.1, 0.35, 0.8, 0.05])
-    size_mean = np.array([3.0, 1.0, 6.5, 2.0])
-    size_var = np.array([10.0, 0.0, 4.0, 1.0])  # NB sizes, unit sizes, shifted Poisson, 1 + Poisson
-    n = np.array([4, 12, 3, 26])
+    # A period's demand is B x S with B ~ Bernoulli(p) independent of the size S: E = p mu,
+    # Var = p sigma^2 + p (1 - p) mu^2 (law of total variance; Ross 2014, Introduction to
+    # Probability Models, 11th ed., ch. 3, from memory); over n independent periods both are
+    # multiplied by n.
+    p = np.array([0.1, 0.35, 0.05, 0.6])
+    size_mean = np.array([3.0, 1.0, 2.0, 4.0])
+    size_var = np.array([10.0, 0.0, 1.0, 3.0])  # overdispersed, unit sizes, 1 + Poisson(1), 1 + Poisson(3)
+    n = np.array([4, 12, 26, 3])
     pmf = dist.demand_pmf("compound", _compound(p, size_mean, size_var), p * size_mean, periods=n)
     np.testing.assert_allclose(dist.pmf_mean(pmf), n * p * size_mean, rtol=1e-9)
-    # the fitted size family reproduces size_var exactly when it exceeds size_mean - 1, and
-    # gives the (documented) variance size_mean - floor(size_mean - size_var) otherwise
-    var_s = np.array([10.0, 0.0, 6.5 - 2.0, 1.0])
-    np.testing.assert_allclose(dist.pmf_var(pmf), n * p * var_s + n * p * (1 - p) * size_mean**2, rtol=1e-8)
+    np.testing.assert_allclose(dist.pmf_var(pmf), n * (p * size_var + p * (1 - p) * size_mean**2), rtol=1e-8)
+
+
+def test_compound_pmf_equals_the_convolution_of_known_period_distributions():
+    # Known truth built from scipy.stats: sizes 1 + Poisson(lam) (mean 1 + lam, variance lam) and
+    # 1 + NB (scipy.stats.nbinom, size r, prob q: mean r (1-q)/q, variance r (1-q)/q^2); total
+    # demand over n periods is the n-fold convolution of the one-period PMF.
+    k = np.arange(200)
+    cases = [
+        (0.3, stats.poisson.pmf(k - 1, 1.5), 2.5, 1.5, 4),
+        (0.15, stats.nbinom.pmf(k - 1, 0.5, 0.2), 1 + 0.5 * 0.8 / 0.2, 0.5 * 0.8 / 0.04, 3),
+    ]
+    for p, size_pmf, mu, var, n in cases:
+        exact = _n_fold(_one_period_pmf(p, size_pmf), n)
+        got = dist.demand_pmf("compound", _compound([p], [mu], [var]), [p * mu], periods=n)[0]
+        m = min(got.size, exact.size)
+        np.testing.assert_allclose(got[:m], exact[:m], atol=1e-10)
+        assert 1 - got.sum() < 1e-9 and 1 - exact[:m].sum() < 1e-6
+
+
+def test_compound_with_underdispersed_sizes_stays_within_one_unit_of_size_variance():
+    # Sizes with variance below mean - 1 (here mean 6.5, variance 4) are not in the size family;
+    # the documented stand-in keeps the size mean and a size variance in [size_var, size_var + 1).
+    # Textbook moments (Ross 2014, ch. 3, from memory) with that allowance:
+    p, mu, var, n = 0.8, 6.5, 4.0, 3
+    pmf = dist.demand_pmf("compound", _compound([p], [mu], [var]), [p * mu], periods=n)
+    assert dist.pmf_mean(pmf)[0] == pytest.approx(n * p * mu, rel=1e-9)
+    low = n * (p * var + p * (1 - p) * mu**2)
+    assert low - 1e-8 <= dist.pmf_var(pmf)[0] < low + n * p * 1.0
 
 
 def test_zip_mean_and_variance_closed_forms():
@@ -203,18 +244,21 @@ def _bernoulli_poisson_history(rng, n_periods, p, lam):
 
 
 def test_bootstrap_converges_to_the_analytic_distribution_on_a_long_iid_history():
-    # Willemain, Smart & Schwarz (2004), IJF 20:375-387: without jitter, on a long i.i.d. history
-    # the Markov-chain bootstrap reproduces the compound Bernoulli distribution (here sizes are
-    # 1 + Poisson(1.5), which the size family represents exactly)
+    # The bootstrap of Willemain, Smart & Schwarz (2004, IJF 20:375-387): demand occurrence from a
+    # two-state Markov chain fitted to the history, sizes resampled from the observed demands
+    # (jitter turned off here). The paper states no convergence result; ours: on a long i.i.d.
+    # history both transition probabilities tend to p and the resampled sizes to the size law,
+    # so the n-period total tends to the compound Bernoulli distribution. Known truth: the
+    # n-fold convolution of the one-period PMF, sizes 1 + Poisson(1.5) from scipy.stats.
     rng = np.random.default_rng(11)
     p, lam, n = 0.3, 1.5, 4
     values = _bernoulli_poisson_history(rng, 40_000, p, lam)[None, :]
     boot = dist.demand_pmf("empirical", None, [0.0], periods=n, values=values, seed=3,
-                           n_samples=40_000, jitter=False)
-    exact = dist.demand_pmf("compound", _compound([p], [1 + lam], [lam]), [p * (1 + lam)], periods=n)
-    k = max(boot.shape[1], exact.shape[1])
-    gap = np.abs(dist.pmf_cdf(np.pad(boot, ((0, 0), (0, k - boot.shape[1]))))
-                 - dist.pmf_cdf(np.pad(exact, ((0, 0), (0, k - exact.shape[1])))))
+                           n_samples=40_000, jitter=False)[0]
+    k = np.arange(60)
+    exact = _n_fold(_one_period_pmf(p, stats.poisson.pmf(k - 1, lam)), n)
+    m = max(boot.size, exact.size)
+    gap = np.abs(np.cumsum(np.pad(boot, (0, m - boot.size))) - np.cumsum(np.pad(exact, (0, m - exact.size))))
     assert gap.max() < 0.015  # sampling error ~ 1 / sqrt(40,000) plus history noise
 
 

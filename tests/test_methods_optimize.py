@@ -44,17 +44,51 @@ def test_tsb_one_free_constant_never_worse_than_fine_grid():
     assert np.all(params["alpha"] == 0.2)
 
 
-def test_two_free_constants_close_to_fine_grid():
-    y = _panel(11, n_items=6)
-    coarse = np.linspace(0.01, 0.5, 50)
-    for f in (M.tsb, M.croston):
-        _, params, best = f(y, alpha=None, beta=None, return_params=True)
-        grid = np.array([[f(y, alpha=a, beta=b, return_params=True)[2] for b in coarse]
-                         for a in coarse]).reshape(-1, y.shape[0])
-        # two free constants get a coarse grid then coordinate line searches: a local method,
-        # so on a multimodal surface it may stop in a slightly worse basin. Bound that loss.
-        assert np.all(best <= grid.min(axis=0) * 1.01)
-        assert np.median(best / grid.min(axis=0)) <= 1.0 + 1e-4
+SEEDS = range(80)  # 80 panels of 6 items: 480 items per method
+OWN_GRID = np.linspace(0.01, 0.5, 5)  # the documented GRID_2D x GRID_2D start on the bounds
+FINE_2D = np.linspace(0.01, 0.5, 50)
+
+
+def _cost_grid(f, y, grid):
+    return np.array([[f(y, alpha=a, beta=b, return_params=True)[2] for b in grid]
+                     for a in grid]).reshape(-1, y.shape[0]).min(axis=0)
+
+
+@pytest.fixture(scope="module", params=["tsb", "croston"])
+def two_free(request):
+    """Optimised cost, best cost on its own 5 x 5 start grid and on a 50 x 50 grid, per item."""
+    f = getattr(M, request.param)
+    y = np.vstack([_panel(seed, n_items=6) for seed in SEEDS])  # items are fitted one by one
+    _, _, best = f(y, alpha=None, beta=None, return_params=True)
+    return best, _cost_grid(f, y, OWN_GRID), _cost_grid(f, y, FINE_2D)
+
+
+def test_two_free_constants_never_worse_than_their_start_grid(two_free):
+    # What the search guarantees: it keeps the best point ever evaluated, and it evaluates the
+    # whole 5 x 5 grid first, so on every item it is no worse than that grid.
+    best, own, _ = two_free
+    assert np.all(best <= own * (1 + 1e-12))
+
+
+def test_two_free_constants_close_to_a_fine_grid_over_many_seeds(two_free):
+    # The line searches after the grid are local: on a multimodal cost (MSE of TSB or Croston on
+    # short intermittent series) they can stop in a shallower dip, so no per-item bound follows
+    # from the method. What it meets over 480 items x 2 methods (measured on seeds 0-79 and
+    # 100-139): the median item is within 1e-5 of the 50 x 50 grid, 95% or more within 0.5%,
+    # and the worst within 3.1%. The bounds below leave room for other seeds.
+    best, _, fine = two_free
+    ratio = best / fine
+    assert np.median(ratio) <= 1.0 + 1e-3
+    assert np.mean(ratio <= 1.005) >= 0.9
+    assert ratio.max() <= 1.05
+
+
+@pytest.mark.xfail(strict=True, reason="two-constant search is local: worst item 3.0% (TSB) and 2.4% "
+                                       "(Croston) above a 50 x 50 grid on seeds 0-79, aim is 0.5%")
+def test_two_free_constants_within_half_a_percent_of_a_fine_grid_on_every_item(two_free):
+    # the stated aim: every item within 0.5% of the best point of a 50 x 50 grid
+    best, _, fine = two_free
+    assert np.all(best <= fine * 1.005)
 
 
 def _brute_costs(y, forecasts):
@@ -65,7 +99,8 @@ def _brute_costs(y, forecasts):
 
 
 def _tsb_reference(y, a, b):
-    # period by period, exactly as the recurrence is written
+    # period by period, exactly as the recurrence is written; the start values (z = first size,
+    # p = 1 / first interval) are our convention, not fixed by Teunter, Syntetos & Babai (2011)
     t = np.flatnonzero(y > 0)
     z, p = y[t[0]], 1.0 / (t[1] - t[0] if len(t) > 1 else 1)
     f = np.empty(len(y))
@@ -79,6 +114,7 @@ def _tsb_reference(y, a, b):
 
 
 def _croston_reference(y, a):
+    # start values z = first size, x = first interval: our convention
     t = np.flatnonzero(y > 0)
     z, x = y[t[0]], float(t[1] - t[0] if len(t) > 1 else 1)
     f = np.empty(len(y))

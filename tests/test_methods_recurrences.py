@@ -12,8 +12,8 @@ SERIES = np.array([0, 0, 4, 0, 0, 0, 2, 0, 6, 0], dtype=float)
 
 
 def test_croston_sba_sbj_hand_worked():
-    # Croston (1972, Operational Research Quarterly 23:289-303), alpha = 0.2:
-    # z = 4, x = 4 (first interval). Demand 2 after 4 periods: z = 4 + .2(2-4) = 3.6,
+    # Croston (1972, Operational Research Quarterly 23:289-303), alpha = 0.2. Start values
+    # z = first size 4, x = first interval 4: our convention. Demand 2 after 4 periods: z = 4 + .2(2-4) = 3.6,
     # x = 4 + .2(4-4) = 4. Demand 6 after 2: z = 3.6 + .2(6-3.6) = 4.08, x = 4 + .2(2-4) = 3.6.
     # Croston = 4.08 / 3.6 = 1.133333...
     assert M.croston(SERIES, 3, alpha=0.2) == pytest.approx([4.08 / 3.6] * 3, rel=1e-12)
@@ -24,7 +24,8 @@ def test_croston_sba_sbj_hand_worked():
 
 
 def test_croston_separate_constants_hand_worked():
-    # size constant .5, interval constant .1 (Kourentzes 2014, IJPE 156:180-190 allows both):
+    # size constant .5, interval constant .1 (separate constants as in Kourentzes 2014, IJPE
+    # 156:180-190; from memory):
     # z: 4 -> 3 -> 4.5; x: 4 -> 4 -> 4 + .1(2-4) = 3.8; SBA factor uses the interval one: .95
     assert M.croston(SERIES, alpha=0.5, beta=0.1)[0] == pytest.approx(4.5 / 3.8, rel=1e-12)
     assert M.sba(SERIES, alpha=0.5, beta=0.1)[0] == pytest.approx(4.5 / 3.8 * 0.95, rel=1e-12)
@@ -40,8 +41,9 @@ def test_croston_in_sample_mse_hand_worked():
 
 
 def test_tsb_hand_worked():
-    # TSB, Teunter, Syntetos & Babai (2011, EJOR 214:606-615), alpha = .2, beta = .1:
-    # z = 4, p = 1/4. Three zeros: p = .25 * .9**3 = .18225. Demand 2: p = .18225 + .1(1-.18225)
+    # TSB recurrence of Teunter, Syntetos & Babai (2011, EJOR 214:606-615), alpha = .2,
+    # beta = .1. Start values z = first size 4, p = 1 / first interval = 1/4: our convention
+    # (not fixed by the paper). Three zeros: p = .25 * .9**3 = .18225. Demand 2: p = .18225 + .1(1-.18225)
     # = .264025, z = 3.6. Zero: p = .2376225. Demand 6: p = .31386025, z = 4.08.
     # Zero: p = .282474225. Forecast p z = 1.1524948...
     assert M.tsb(SERIES, 2, alpha=0.2, beta=0.1) == pytest.approx([0.282474225 * 4.08] * 2, rel=1e-12)
@@ -63,7 +65,8 @@ def test_ses_matches_statsmodels_with_known_initial_level():
         assert mse == pytest.approx(np.mean(errors**2), rel=1e-10)
         _, _, mae = M.ses(y, alpha=alpha, cost="mae", return_params=True)
         assert mae == pytest.approx(np.mean(np.abs(errors)), rel=1e-10)
-        # the rate costs of Kourentzes (2014, IJPE 156:180-190) on the cumulative error
+        # the rate costs (MAR, MSR) of Kourentzes (2014, IJPE 156:180-190; from memory) on the
+        # cumulative error
         _, _, msr = M.ses(y, alpha=alpha, cost="msr", return_params=True)
         assert msr == pytest.approx(np.mean(np.cumsum(errors) ** 2), rel=1e-9)
         _, _, mar = M.ses(y, alpha=alpha, cost="mar", return_params=True)

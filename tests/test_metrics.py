@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import properscoring
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -183,7 +184,7 @@ def test_mean_and_scaled_pinball_by_hand():
     q = [[1.0, 2.0], [1.0, 2.0], [1.0, 2.0]]
     # actual 2 0 1; level 0.5 with q = 1: 0.5*1, 0.5*1, 0 -> 1/3; level 0.9 with q = 2: 0, 0.1*2, 0.1*1 -> 0.1
     np.testing.assert_allclose(M.pinball(None, ACTUAL, q, levels=[0.5, 0.9]), [1 / 3, 0.1])
-    # scaled by the MASE scale 5/3 (Makridakis et al. 2022, IJF 38:1365-1385, SPL)
+    # scaled by the MASE scale 5/3 (SPL of Makridakis et al. 2022, IJF 38:1365-1385; from memory)
     np.testing.assert_allclose(M.scaled_pinball(INSAMPLE, ACTUAL, q, levels=[0.5, 0.9]), [0.2, 0.06])
 
 
@@ -207,9 +208,9 @@ def test_coverage_of_true_quantiles_is_near_the_level():
 
 
 def test_quantile_crps_matches_the_normal_closed_form_and_properscoring():
-    # CRPS of N(mu, sigma^2) at y (Gneiting & Raftery 2007, JASA 102:359-378, eq. 5):
+    # CRPS of N(mu, sigma^2) at y (Gneiting & Raftery 2007, JASA 102:359-378; equation from memory),
+    # checked against properscoring as well:
     # sigma * (z (2 Phi(z) - 1) + 2 phi(z) - 1/sqrt(pi)), z = (y - mu) / sigma
-    properscoring = pytest.importorskip("properscoring")
     mu, sigma = 4.0, 1.5
     y = np.array([1.0, 4.0, 4.7, 9.0])
     z = (y - mu) / sigma

@@ -10,9 +10,10 @@ from html import escape
 import numpy as np
 import pandas as pd
 import pytest
+from statsmodels.tsa import holtwinters
 
 from report_run import make_run
-from sparsedemand import report
+from sparsedemand import methods, report
 from sparsedemand.classify import pattern_summary
 from sparsedemand.panel import first_demand_offsets
 from sparsedemand.report import STOCK_CAUTION, build_report, ses_level
@@ -277,7 +278,6 @@ def test_without_history_item_pages_show_the_forecast_only(tmp_path):
 def test_ses_level_matches_a_reference_library():
     # statsmodels' simple exponential smoothing with a known initial level
     # (Hyndman & Athanasopoulos, Forecasting: Principles and Practice, 3rd ed. 2021, ch. 8.1)
-    holtwinters = pytest.importorskip("statsmodels.tsa.holtwinters")
     y = np.array([0.0, 0.0, 3.0, 0.0, 1.0, 0.0, 0.0, 4.0, 2.0, 0.0, 0.0, 1.0])
     start = 2
     ours = ses_level(y, np.ones(len(y), bool), start, alpha=0.3)
@@ -295,9 +295,6 @@ def test_ses_level_holds_through_unavailable_periods():
 
 
 def test_fitted_level_is_the_methods_own_one_step_forecast():
-    methods = pytest.importorskip("sparsedemand.methods")
-    if not hasattr(methods, "fit"):
-        pytest.skip("sparsedemand.methods has no fit() yet")
     rng = np.random.default_rng(4)
     y = np.where(rng.random(150) < 0.2, rng.integers(1, 6, 150), 0).astype(float)
     y[:7] = 0.0

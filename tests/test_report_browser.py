@@ -2,8 +2,9 @@
 
 Needs the ``chromium`` and ``chromium-driver`` Debian packages (or any
 Chromium with its matching chromedriver on PATH) and the ``selenium`` package
-from the dev extra. Where the browser cannot be started the tests skip and
-say why.
+from the dev extra. Without the Chromium binary or its driver (system
+packages, not Python ones) the tests skip and say why; a missing selenium
+fails the suite.
 """
 
 from __future__ import annotations
@@ -14,6 +15,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from selenium import webdriver  # dev extra: a missing install fails the suite, it does not skip
+from selenium.common.exceptions import WebDriverException
+from selenium.webdriver.chrome.service import Service
 
 from report_run import make_run
 from sparsedemand.report import build_report
@@ -36,11 +40,6 @@ def _first_found(*names: str) -> str | None:
 
 @pytest.fixture(scope="module")
 def driver(tmp_path_factory):
-    webdriver = pytest.importorskip(
-        "selenium.webdriver", reason="selenium is not installed (it is in the dev extra: pip install -e .[dev])")
-    from selenium.common.exceptions import WebDriverException
-    from selenium.webdriver.chrome.service import Service
-
     binary = _first_found("chromium", "chromium-browser", "google-chrome")
     if binary is None:
         pytest.skip("no Chromium found on PATH (Debian: apt-get install chromium chromium-driver)")

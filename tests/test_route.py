@@ -74,10 +74,12 @@ def test_hand_made_series_fall_in_their_patterns(routed):
     assert routed.audit["pattern"].tolist() == expected
 
 
-# Syntetos, Boylan & Croston (2005, JORS 56:495-503): SES outside the intermittent region, SBA in
-# the erratic, intermittent and lumpy regions; Syntetos & Boylan (2005, IJF 21:303-314): SBA over
-# Croston on intermittent demand; Teunter, Syntetos & Babai (2011, EJOR 214:606-615): TSB for demand
-# that stops (its probability decays every period without demand) or changes frequency.
+# Syntetos, Boylan & Croston (2005, JORS 56:495-503): SBA in the erratic, intermittent and lumpy
+# regions (they favour Croston's method in the smooth one, from memory; SES there is our
+# convention); Syntetos & Boylan (2005, IJF 21:303-314): SBA over Croston on intermittent demand;
+# Teunter, Syntetos & Babai (2011, EJOR 214:606-615): TSB for demand that stops (its probability
+# decays every period without demand). TSB for a change in demand frequency, and the fallbacks
+# for too-short and never-sold items: our convention.
 EXPECTED_METHOD = {
     "smooth": "ses",
     "erratic": "sba",
@@ -127,7 +129,9 @@ def test_rate_change_test_equals_fisher_exact_from_scipy():
         r = table.loc[name]
         a, b = int(r.recent_demands), int(r.recent_periods - r.recent_demands)
         c, d = int(r.earlier_demands), int(r.earlier_periods - r.earlier_demands)
-        # Fisher's exact test (scipy.stats.fisher_exact), two-sided as twice the smaller tail
+        # Fisher's exact test: the two one-sided tails come from scipy.stats.fisher_exact. The
+        # two-sided p as twice the smaller tail (capped at 1) is our convention; scipy's
+        # "two-sided" sums the tables no more likely than the observed one and can differ.
         less = stats.fisher_exact([[a, b], [c, d]], alternative="less").pvalue
         greater = stats.fisher_exact([[a, b], [c, d]], alternative="greater").pvalue
         assert r.p_value == pytest.approx(min(1.0, 2 * min(less, greater)), rel=1e-9)

@@ -50,7 +50,8 @@ def test_normal_loss_against_numerical_integration():
 
 # ----------------------------------------------------------------------------- textbook targets
 def test_normal_reorder_point_is_mean_plus_k_sigma_rounded_up():
-    # Silver, Pyke & Thomas (2017), ch. 6: s = x_L + k sigma_L with k = Phi^-1(target); rounded up
+    # Silver, Pyke & Thomas (2017), ch. 6 (chapter from memory): s = x_L + k sigma_L with
+    # k = Phi^-1(target); rounded up
     # to a whole unit (common practice); order-up-to on L + R likewise
     fit = _fit("ses", "normal", [[20.0, 20.0, 20.0]], sigma=[4.0])
     table = stock_targets(fit, lead_time=3, review_period=2, service_level=0.95)
@@ -62,8 +63,9 @@ def test_normal_reorder_point_is_mean_plus_k_sigma_rounded_up():
 
 
 def test_normal_fill_rate_uses_the_loss_function():
-    # Silver, Pyke & Thomas (2017), ch. 7: periodic review fill rate 1 - sigma_{L+R} G(k) / (D R),
-    # with the exact backorder term sigma_L G(k_L) subtracted (Hadley & Whitin 1963)
+    # Silver, Pyke & Thomas (2017), ch. 7 (chapter from memory): periodic review fill rate
+    # 1 - sigma_{L+R} G(k) / (D R), with the exact backorder term sigma_L G(k_L) subtracted
+    # (Hadley & Whitin 1963, from memory)
     mu, sigma, L, R = 30.0, 9.0, 2, 1
     fit = _fit("ses", "normal", [mu], sigma=[sigma])
     table = stock_targets(fit, lead_time=L, review_period=R, fill_rate=0.97)
@@ -198,8 +200,8 @@ def test_order_up_to_policy_meets_its_expected_fill_rate_and_service_in_simulati
 
 def test_fill_rate_target_gives_the_smallest_level_that_meets_it():
     # unit sizes: D_L ~ Binomial(L, p) and D_{L+R} ~ Binomial(L+R, p) (scipy.stats.binom); the fill
-    # rate 1 - (E[(D_{L+R} - S)^+] - E[(D_L - S)^+]) / E[D_R] (Silver, Pyke & Thomas 2017, ch. 7,
-    # exact backorder form) must meet the target at S and miss it at S - 1
+    # rate 1 - (E[(D_{L+R} - S)^+] - E[(D_L - S)^+]) / E[D_R] (Silver, Pyke & Thomas 2017,
+    # ch. 7 from memory; exact backorder form) must meet the target at S and miss it at S - 1
     p, L, R, target = np.array([0.2, 0.5, 0.05]), np.array([3, 6, 10]), 2, 0.9
     table = stock_targets(_compound_fit(p, [1.0] * 3, [0.0] * 3), lead_time=L, review_period=R,
                           fill_rate=target)
@@ -217,7 +219,7 @@ def test_fill_rate_target_gives_the_smallest_level_that_meets_it():
 
 def test_reorder_point_fill_rate_with_a_lot_size():
     # continuous review (s, Q): fill rate 1 - (E[(D_L - s)^+] - E[(D_L - s - Q)^+]) / Q (Silver,
-    # Pyke & Thomas 2017, ch. 7; exact backorder form); Poisson lead-time demand from scipy
+    # Pyke & Thomas 2017, ch. 7 from memory; exact backorder form); Poisson lead-time demand from scipy
     lam, L, Q = 2.0, 3, 4.0
     table = stock_targets(_fit("zip", "zip", [lam], pi=[0.0], lam=[lam]), lead_time=L, fill_rate=0.95,
                           lot_size=Q)
