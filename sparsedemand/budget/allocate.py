@@ -1,24 +1,8 @@
-"""Stock under a budget, uncertain lead times, packs and minimum orders.
-
-Periodic review, order-up-to level ``S``, unmet demand backordered: the same
-model and definitions as :mod:`sparsedemand.stock`. Per item and whole-unit
-level ``S = 0 .. S_max`` a :class:`ServiceCurves` holds
-
-* ``filled(S)``: expected units filled from stock per period,
-  ``(E[D_R] - ESPRC(S)) / R`` with ``ESPRC(S) = E[(D_{L+R} - S)^+] - E[(D_L - S)^+]``,
-  i.e. the expected fill rate times the mean demand per period;
-* ``on_hand(S)``: expected stock on hand, ``(1/R) sum_j E[(S - D_{L+j})^+]``, ``j = 1 .. R``;
-* ``cycle_service(S)``: ``P(D_{L+R} <= S)``.
-
-:func:`order_up_to_curves` builds them from the PMFs the stock stage already
-computes. On top of the curves: :func:`allocate_budget` (greedy marginal
-analysis), :func:`budget_frontier` and :func:`uniform_ladder` (what a budget
-buys against one service target for all), :func:`packed_curves` and
-:func:`order_quantity` (packs and minimum orders), and the lead-time helpers
-:func:`lead_time_mixture` and :func:`lead_time_distribution`.
+"""Budget allocation by greedy marginal analysis, its frontier and the uniform-target ladder.
 
 Examples
 --------
+>>> from sparsedemand.budget.curves import service_curves
 >>> c = service_curves([[0.0, 0.6, 0.9, 1.0]], [[0.0, 0.4, 1.1, 2.0]])
 >>> allocate_budget(c, unit_price=[10.0], budget=12.0).level.tolist()
 [2]
@@ -27,232 +11,21 @@ Examples
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 from numba import njit
-from scipy.special import gammaln
 
-from .errors import InputError
-from .methods import distributions as dist
+from ..errors import InputError
+from .curves import ServiceCurves, _floors, _prices, curve_values, levels_for_service
 
-__all__ = [
-    "ServiceCurves", "Allocation", "service_curves", "order_up_to_curves", "levels_for_service",
-    "curve_values", "allocate_budget", "budget_frontier", "uniform_ladder", "packed_curves",
-    "order_quantity", "lead_time_mixture", "lead_time_distribution", "lead_time_moments",
-    "lead_time_demand_moments",
-]
+__all__ = ["Allocation", "allocate_budget", "budget_frontier", "uniform_ladder"]
 
-_SLACK = 1e-12  # the stock stage's slack on a cumulative probability
 _GAIN_TOL = 1e-12  # relative: gains below this share of an item's demand are noise
 
 
-# --------------------------------------------------------------------------- curves
-@dataclass(frozen=True)
-class ServiceCurves:
-    """Per-item curves over whole order-up-to levels, stored flat (CSR).
-
-    Item ``i`` has levels ``S = 0 .. sizes[i] - 1`` at ``indptr[i] + S`` of
-    ``filled``, ``on_hand`` and ``cycle_service`` (NaN when not given).
-    ``mean_demand`` is the expected demand per period (what ``filled`` tends to).
-    """
-
-    indptr: np.ndarray
-    filled: np.ndarray
-    on_hand: np.ndarray
-    cycle_service: np.ndarray
-    mean_demand: np.ndarray
-    items: list
-
-    @property
-    def n_items(self) -> int:
-        return len(self.indptr) - 1
-
-    @property
-    def sizes(self) -> np.ndarray:
-        return np.diff(self.indptr)
-
-
-def _flat(curve, n: int | None, name: str) -> tuple[np.ndarray, np.ndarray]:
-    """(flat values, lengths) from a 2-D array or ragged rows; trailing NaN = beyond the item's grid."""
-    rows = []
-    for r in (np.asarray(curve, dtype=np.float64) if isinstance(curve, np.ndarray) else curve):
-        r = np.asarray(r, dtype=np.float64).ravel()
-        ok = np.flatnonzero(~np.isnan(r))
-        rows.append(r[: ok[-1] + 1] if ok.size else r[:0])
-    if n is not None and len(rows) != n:
-        raise InputError(f"{name} has {len(rows)} items, expected {n}")
-    lengths = np.fromiter((len(r) for r in rows), dtype=np.int64, count=len(rows))
-    flat = np.concatenate(rows) if rows else np.zeros(0)
-    return flat, lengths
-
-
-def service_curves(filled, on_hand, *, cycle_service=None, mean_demand=None, items=None) -> ServiceCurves:
-    """Check and pack per-item curves over ``S = 0 .. S_max`` (2-D arrays or ragged rows).
-
-    Parameters
-    ----------
-    filled, on_hand : 2-D array or sequence of 1-D arrays
-        Expected units filled per period and expected units on hand at each
-        level; ``on_hand`` must not decrease with ``S``. In a 2-D array,
-        trailing NaN mark levels beyond an item's grid.
-    cycle_service : same shape, optional
-        ``P(no stock-out in a cycle)`` at each level (needed by the frontier).
-    mean_demand : array (n_items,), optional
-        Mean demand per period (default: the last ``filled`` value).
-    items : sequence, optional
-        Item labels for messages and tables.
-
-    Examples
-    --------
-    >>> service_curves([[0.0, 0.5], [0.0, 1.0, 2.0]], [[0.0, 1.0], [0.0, 0.5, 1.0]]).sizes.tolist()
-    [2, 3]
-    """
-    f, lengths = _flat(filled, None, "filled")
-    n = len(lengths)
-    labels = list(range(n)) if items is None else list(items)
-    if len(labels) != n:
-        raise InputError(f"{len(labels)} item labels for {n} curves")
-    h, lh = _flat(on_hand, n, "on_hand")
-    c, lc = (np.full_like(f, np.nan), lengths) if cycle_service is None else _flat(cycle_service, n, "cycle_service")
-    indptr = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
-    for name, arr, ln in (("filled", f, lengths), ("on_hand", h, lh), ("cycle_service", c, lc)):
-        bad = (ln != lengths) | (lengths == 0)
-        if bad.any():
-            raise InputError(f"{name} curve of item {labels[int(np.flatnonzero(bad)[0])]!r} is empty or "
-                             "not as long as its filled curve")
-        if name != "cycle_service" or cycle_service is not None:
-            nonfinite = ~np.isfinite(arr)
-            if nonfinite.any():
-                i = int(np.searchsorted(indptr, np.flatnonzero(nonfinite)[0], side="right") - 1)
-                raise InputError(f"{name} curve of item {labels[i]!r} has a missing or infinite value")
-    drop = np.diff(h) < -1e-9 * np.maximum(1.0, np.abs(h[1:]))
-    drop[indptr[1:-1] - 1] = False  # across items
-    if drop.any():
-        i = int(np.searchsorted(indptr, np.flatnonzero(drop)[0] + 1, side="right") - 1)
-        raise InputError(f"on_hand curve of item {labels[i]!r} decreases with the order-up-to level")
-    if mean_demand is None:
-        mean = f[indptr[1:] - 1].copy()
-    else:
-        mean = np.broadcast_to(np.asarray(mean_demand, dtype=np.float64), (n,)).copy()
-        if (~np.isfinite(mean) | (mean < 0)).any():
-            i = int(np.flatnonzero(~np.isfinite(mean) | (mean < 0))[0])
-            raise InputError(f"mean_demand must be finite and >= 0, got {mean[i]!r} for item {labels[i]!r}")
-    return ServiceCurves(indptr, f, h, c, mean, labels)
-
-
-def order_up_to_curves(p_lead, p_steps: Sequence, *, review_period=1, items=None) -> ServiceCurves:
-    """Service curves from dense PMFs, with the stock stage's formulas.
-
-    Parameters
-    ----------
-    p_lead : ndarray (n_items, W)
-        PMF of demand over the lead time ``D_L``.
-    p_steps : sequence of ndarray (n_items, W)
-        ``p_steps[j-1]`` is the PMF of ``D_{L+min(j, R)}``, ``j = 1 .. max R``
-        (as ``stock._pmf_targets`` takes them); the last one is ``D_{L+R}``.
-    review_period : int or array of int (n_items,)
-        ``R``, >= 1.
-
-    Returns
-    -------
-    ServiceCurves
-        Levels ``S = 0 .. W`` for every item (level ``W`` lies beyond the grid,
-        where the curves have reached their limits).
-
-    Examples
-    --------
-    >>> p = np.array([[0.5, 0.5, 0.0]])   # D_L in {0, 1}; D_{L+1} adds 0 or 1 more
-    >>> order_up_to_curves(p, [np.array([[0.25, 0.5, 0.25]])]).filled.round(2).tolist()
-    [0.0, 0.25, 0.5, 0.5]
-    """
-    p_lead = np.asarray(p_lead, dtype=np.float64)
-    steps = [np.asarray(p, dtype=np.float64) for p in p_steps]
-    if p_lead.ndim != 2 or not steps or any(p.shape != p_lead.shape for p in steps):
-        raise InputError("p_lead and every p_steps entry must be 2-D PMFs of one shape (items x grid)")
-    n, width = p_lead.shape
-    R = np.broadcast_to(np.asarray(review_period), (n,)).astype(np.int64)
-    if (R < 1).any() or (R > len(steps)).any():
-        raise InputError(f"review_period must lie in 1 .. {len(steps)} (one PMF per step)")
-    level = np.arange(width + 1, dtype=np.float64)[None, :]
-    curve_l = dist.shortage_curve(p_lead)
-    curve_c = dist.shortage_curve(steps[-1])
-    mean_r = np.maximum(dist.pmf_mean(steps[-1]) - dist.pmf_mean(p_lead), 0.0)
-    filled = (mean_r[:, None] - (curve_c - curve_l)) / R[:, None]
-    on_hand = np.zeros((n, width + 1))
-    for j, p in enumerate(steps, start=1):  # E[(S - D)^+] = S - E[D] + E[(D - S)^+]
-        left = np.maximum(level - dist.pmf_mean(p)[:, None] + dist.shortage_curve(p), 0.0)
-        on_hand += np.where((j <= R)[:, None], left, 0.0)
-    csl = np.concatenate([np.cumsum(steps[-1], axis=1), np.ones((n, 1))], axis=1)
-    return service_curves(np.maximum(filled, 0.0), on_hand / R[:, None], cycle_service=np.minimum(csl, 1.0),
-                          mean_demand=mean_r / R, items=items)
-
-
-def levels_for_service(curves: ServiceCurves, level: float, *, floor=0) -> np.ndarray:
-    """Smallest ``S`` with ``cycle_service(S) >= level`` per item (the stock stage's rule), at least ``floor``.
-
-    Examples
-    --------
-    >>> c = service_curves([[0.0, 1.0, 1.0]], [[0.0, 1.0, 2.0]], cycle_service=[[0.3, 0.9, 1.0]])
-    >>> levels_for_service(c, 0.9).tolist()
-    [1]
-    """
-    if np.isnan(curves.cycle_service).any():
-        raise InputError("a service target needs cycle_service curves")
-    hit = curves.cycle_service >= float(level) - _SLACK
-    out = np.empty(curves.n_items, dtype=np.int64)
-    for i, (lo, hi) in enumerate(zip(curves.indptr[:-1], curves.indptr[1:])):
-        h = hit[lo:hi]
-        out[i] = int(np.argmax(h)) if h.any() else hi - lo - 1
-    return np.maximum(out, _floors(curves, floor))
-
-
-def curve_values(curves: ServiceCurves, level) -> dict:
-    """Per-item ``filled``, ``fill_rate``, ``on_hand`` and ``cycle_service`` at whole levels ``S``.
-
-    Examples
-    --------
-    >>> c = service_curves([[0.0, 0.5, 1.0]], [[0.0, 0.5, 1.5]])
-    >>> curve_values(c, [1])["fill_rate"].tolist()
-    [0.5]
-    """
-    S = _floors(curves, level)
-    at = curves.indptr[:-1] + S
-    with np.errstate(divide="ignore", invalid="ignore"):
-        rate = np.where(curves.mean_demand > 0, curves.filled[at] / curves.mean_demand, np.nan)
-    return {"filled": curves.filled[at], "fill_rate": rate, "on_hand": curves.on_hand[at],
-            "cycle_service": curves.cycle_service[at]}
-
-
-def _floors(curves: ServiceCurves, floor) -> np.ndarray:
-    n = curves.n_items
-    f = np.broadcast_to(np.asarray(floor, dtype=np.float64), (n,))
-    bad = ~np.isfinite(f) | (f != np.round(f)) | (f < 0) | (f >= curves.sizes)
-    if bad.any():
-        i = int(np.flatnonzero(bad)[0])
-        raise InputError(f"minimum order-up-to level {f[i]!r} for item {curves.items[i]!r} is not a whole "
-                         f"level in 0 .. {curves.sizes[i] - 1}")
-    return f.astype(np.int64)
-
-
-def _prices(curves: ServiceCurves, unit_price) -> np.ndarray:
-    if unit_price is None:
-        raise InputError("--budget needs unit prices")
-    p = np.asarray(unit_price, dtype=np.float64)
-    p = np.full(curves.n_items, float(p)) if p.ndim == 0 else p
-    if p.shape != (curves.n_items,):
-        raise InputError(f"--budget needs one unit price per item ({curves.n_items}), got {p.size}")
-    bad = ~np.isfinite(p) | (p <= 0)
-    if bad.any():
-        i = int(np.flatnonzero(bad)[0])
-        what = "no unit price" if np.isnan(p[i]) else f"unit price {p[i]!r}"
-        raise InputError(f"--budget needs unit prices > 0: item {curves.items[i]!r} has {what}")
-    return p
-
-
-# --------------------------------------------------------------------------- greedy path
 @njit(cache=True)
 def _hull_steps(v, f, indptr, floor, eps, to_level, dv, df, ratio):
     """Upper concave envelope of each item's (value, filled) points from its floor on.
@@ -424,6 +197,7 @@ def allocate_budget(curves: ServiceCurves, *, unit_price, budget: float, floor=0
 
     Examples
     --------
+    >>> from sparsedemand.budget import service_curves
     >>> c = service_curves([[0.0, 0.8, 0.9, 1.0], [0.0, 0.5, 1.0, 1.0]],
     ...                    [[0.0, 0.2, 1.0, 2.0], [0.0, 0.5, 1.2, 2.2]])
     >>> a = allocate_budget(c, unit_price=[1.0, 1.0], budget=1.5)
@@ -507,6 +281,7 @@ def budget_frontier(curves: ServiceCurves, *, unit_price, floor=0, up_to_service
 
     Examples
     --------
+    >>> from sparsedemand.budget import service_curves
     >>> c = service_curves([[0.0, 0.9, 1.0], [0.0, 0.5, 1.0]], [[0.0, 0.1, 1.0], [0.0, 0.5, 1.0]],
     ...                    cycle_service=[[0.1, 0.9, 1.0], [0.5, 0.8, 1.0]])
     >>> budget_frontier(c, unit_price=1.0, up_to_service=0.99)["fill_rate"].round(3).tolist()
@@ -540,6 +315,7 @@ def uniform_ladder(curves: ServiceCurves, *, unit_price,
 
     Examples
     --------
+    >>> from sparsedemand.budget import service_curves
     >>> c = service_curves([[0.0, 0.9, 1.0], [0.0, 0.5, 1.0]], [[0.0, 0.1, 1.0], [0.0, 0.5, 1.0]],
     ...                    cycle_service=[[0.1, 0.9, 1.0], [0.5, 0.8, 1.0]])
     >>> t = uniform_ladder(c, unit_price=1.0, levels=[0.8])
