@@ -121,6 +121,13 @@ def _take(item, dv, room, n_items, fill_up):
     return taken
 
 
+def _levels(curves: ServiceCurves, path: _Path, room: float, fill_up: bool) -> np.ndarray:
+    taken = _take(path.item, path.dv, room, curves.n_items, fill_up)
+    level = path.floor.copy()
+    np.maximum.at(level, path.item[taken], path.to_level[taken])  # an item's taken steps form a prefix
+    return level
+
+
 @dataclass(frozen=True)
 class Allocation:
     """Result of :func:`allocate_budget` (per-item arrays have shape (n_items,)).
@@ -213,9 +220,7 @@ def allocate_budget(curves: ServiceCurves, *, unit_price, budget: float, floor=0
         raise InputError(f"--budget {budget:,.2f} is below {path.value0:,.2f}, the stock value of the minimum "
                          "order-up-to levels")
     room = budget - path.value0 + 1e-12 * max(1.0, abs(budget))
-    taken = _take(path.item, path.dv, room, curves.n_items, fill_up)
-    level = path.floor.copy()
-    np.maximum.at(level, path.item[taken], path.to_level[taken])
+    level = _levels(curves, path, room, fill_up)
     at = curves.indptr[:-1] + level
     filled, on_hand = curves.filled[at], curves.on_hand[at]
     # fractional bound: the path's prefix that fits plus part of the next step
@@ -310,8 +315,8 @@ def uniform_ladder(curves: ServiceCurves, *, unit_price,
 
     Each row sets every item to the smallest level meeting ``service_target``
     (at least its floor). ``allocated_fill_rate`` and
-    ``allocated_cycle_service_level`` are what the greedy path reaches for no
-    more than the same stock value: the gain of allocating the budget.
+    ``allocated_cycle_service_level`` are what :func:`allocate_budget` gets
+    from the same stock value as a budget: the gain of allocating it.
 
     Examples
     --------
@@ -324,7 +329,6 @@ def uniform_ladder(curves: ServiceCurves, *, unit_price,
     """
     price = _prices(curves, unit_price)
     path = _path(curves, price, floor)
-    table = _path_table(curves, path)
     fl = _floors(curves, floor)
     rows = []
     for lv in levels:
@@ -332,8 +336,9 @@ def uniform_ladder(curves: ServiceCurves, *, unit_price,
             raise InputError(f"service levels must lie in [0, 1], got {lv!r}")
         S = levels_for_service(curves, lv, floor=fl)
         row = {"service_target": float(lv), **_uniform_row(curves, price, S), "items_at_floor": int((S == fl).sum())}
-        k = int(np.searchsorted(table["stock_value"].to_numpy(), row["stock_value"] * (1 + 1e-12), side="right") - 1)
-        row["allocated_fill_rate"] = float(table["fill_rate"].iloc[k])
-        row["allocated_cycle_service_level"] = float(table["cycle_service_level"].iloc[k])
+        room = row["stock_value"] - path.value0 + 1e-12 * max(1.0, row["stock_value"])
+        alloc = _uniform_row(curves, price, _levels(curves, path, room, True))
+        row["allocated_fill_rate"] = alloc["fill_rate"]
+        row["allocated_cycle_service_level"] = alloc["cycle_service_level"]
         rows.append(row)
     return pd.DataFrame(rows)

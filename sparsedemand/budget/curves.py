@@ -117,7 +117,7 @@ def service_curves(filled, on_hand, *, cycle_service=None, mean_demand=None, ite
         mean = np.broadcast_to(np.asarray(mean_demand, dtype=np.float64), (n,)).copy()
         if (~np.isfinite(mean) | (mean < 0)).any():
             i = int(np.flatnonzero(~np.isfinite(mean) | (mean < 0))[0])
-            raise InputError(f"mean_demand must be finite and >= 0, got {mean[i]!r} for item {labels[i]!r}")
+            raise InputError(f"mean_demand must be finite and >= 0, got {mean[i]:g} for item {labels[i]!r}")
     return ServiceCurves(indptr, f, h, c, mean, labels)
 
 
@@ -210,7 +210,7 @@ def _floors(curves: ServiceCurves, floor) -> np.ndarray:
     bad = ~np.isfinite(f) | (f != np.round(f)) | (f < 0) | (f >= curves.sizes)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise InputError(f"minimum order-up-to level {f[i]!r} for item {curves.items[i]!r} is not a whole "
+        raise InputError(f"minimum order-up-to level {f[i]:g} for item {curves.items[i]!r} is not a whole "
                          f"level in 0 .. {curves.sizes[i] - 1}")
     return f.astype(np.int64)
 
@@ -225,7 +225,7 @@ def _prices(curves: ServiceCurves, unit_price) -> np.ndarray:
     bad = ~np.isfinite(p) | (p <= 0)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        what = "no unit price" if np.isnan(p[i]) else f"unit price {p[i]!r}"
+        what = "no unit price" if np.isnan(p[i]) else f"unit price {p[i]:g}"
         raise InputError(f"--budget needs unit prices > 0: item {curves.items[i]!r} has {what}")
     return p
 
