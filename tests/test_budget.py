@@ -310,3 +310,13 @@ def test_docstring_examples():
     for mod in (bd, allocate, curves_mod, lead_time):
         result = doctest.testmod(mod, optionflags=doctest.NORMALIZE_WHITESPACE)
         assert result.failed == 0 and result.attempted > 0, mod.__name__
+
+
+def test_levels_for_service_hand_worked():
+    # Hand-worked on ragged curves: the smallest level reaching the target, the last level when
+    # the grid never reaches it, never below the floor.
+    c = bd.service_curves([[0.0, 1.0, 1.0], [0.0, 1.0]], [[0.0, 1.0, 2.0], [0.0, 1.0]],
+                          cycle_service=[[0.2, 0.95, 1.0], [0.5, 0.9]])
+    assert bd.levels_for_service(c, 0.95).tolist() == [1, 1]
+    assert bd.levels_for_service(c, 0.5).tolist() == [1, 0]
+    assert bd.levels_for_service(c, 0.1, floor=[2, 1]).tolist() == [2, 1]

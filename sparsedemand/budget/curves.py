@@ -55,8 +55,15 @@ class ServiceCurves:
 
 def _flat(curve, n: int | None, name: str) -> tuple[np.ndarray, np.ndarray]:
     """(flat values, lengths) from a 2-D array or ragged rows; trailing NaN = beyond the item's grid."""
+    if isinstance(curve, np.ndarray) and curve.ndim == 2:  # one pass, no per-row copies
+        arr = np.asarray(curve, dtype=np.float64)
+        ok = ~np.isnan(arr)
+        lengths = np.where(ok.any(axis=1), arr.shape[1] - np.argmax(ok[:, ::-1], axis=1), 0).astype(np.int64)
+        if n is not None and len(lengths) != n:
+            raise InputError(f"{name} has {len(lengths)} items, expected {n}")
+        return arr[np.arange(arr.shape[1])[None, :] < lengths[:, None]], lengths
     rows = []
-    for r in (np.asarray(curve, dtype=np.float64) if isinstance(curve, np.ndarray) else curve):
+    for r in curve:
         r = np.asarray(r, dtype=np.float64).ravel()
         ok = np.flatnonzero(~np.isnan(r))
         rows.append(r[: ok[-1] + 1] if ok.size else r[:0])
@@ -179,11 +186,11 @@ def levels_for_service(curves: ServiceCurves, level: float, *, floor=0) -> np.nd
     """
     if np.isnan(curves.cycle_service).any():
         raise InputError("a service target needs cycle_service curves")
-    hit = curves.cycle_service >= float(level) - _SLACK
-    out = np.empty(curves.n_items, dtype=np.int64)
-    for i, (lo, hi) in enumerate(zip(curves.indptr[:-1], curves.indptr[1:])):
-        h = hit[lo:hi]
-        out[i] = int(np.argmax(h)) if h.any() else hi - lo - 1
+    hits = np.flatnonzero(curves.cycle_service >= float(level) - _SLACK)
+    lo, hi = curves.indptr[:-1], curves.indptr[1:]
+    pos = np.minimum(np.searchsorted(hits, lo), max(hits.size - 1, 0))
+    found = hits[pos] if hits.size else hi
+    out = np.where((found >= lo) & (found < hi), found, hi - 1) - lo  # never reached: the last level
     return np.maximum(out, _floors(curves, floor))
 
 
