@@ -40,7 +40,8 @@ import pandas as pd
 from numba import njit
 
 from .errors import InputError
-from .panel import DemandPanel, as_panel
+from .io import as_panel
+from .panel import DemandPanel
 
 __all__ = [
     "PATTERNS",

@@ -320,7 +320,8 @@ def _distribution_targets(kind, params, mean, L, R, Q, target_kind, target, *, h
 def _history_panel(history, n: int):
     if history is None:
         return None
-    from .panel import DemandPanel, as_panel
+    from .io import as_panel
+    from .panel import DemandPanel
 
     panel = history if isinstance(history, DemandPanel) else as_panel(history, name="history")
     if panel.n_items != n:
