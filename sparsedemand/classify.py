@@ -28,6 +28,30 @@ order:
   between demands)); a sign of possible obsolescence. The mean interval is the
   item's ADI over its active life (first to last demand), so the silence being
   judged does not stretch its own limit.
+
+The table
+---------
+:func:`classify` returns one row per item in input order, indexed by item
+label, with columns
+
+- ``item``: the item label;
+- ``pattern``: one of :data:`PATTERNS` or :data:`STATUSES`;
+- ``reason``: why, in plain words;
+- ``adi``, ``cv2``: the figures (NaN where undefined: no demand, or
+  CV² with fewer than two demands);
+- ``n_demands``: periods with demand > 0 in the trimmed history;
+- ``n_periods``: available periods in the trimmed history;
+- ``unavailable_periods``: out-of-stock periods in the trimmed history;
+- ``first_demand``, ``last_demand``: period labels (missing if never sold);
+- ``leading_zeros``: periods between the item's first recorded period
+  and its first demand;
+- ``mean_size``: mean of the non-zero sizes;
+- ``mean_interval``: mean available periods between demands;
+- ``quiet_periods``: available periods since the last demand;
+- ``quiet_limit``: quiet periods that make the item ``gone-quiet``;
+- ``volume``: total recorded demand;
+- ``measured_pattern``: the pattern the figures alone indicate, also
+  for items given a status (missing where CV² is undefined).
 """
 
 from __future__ import annotations
@@ -40,7 +64,8 @@ import pandas as pd
 from numba import njit
 
 from .errors import InputError
-from .panel import DemandPanel, as_panel
+from .io import as_panel
+from .panel import DemandPanel
 
 __all__ = [
     "PATTERNS",
@@ -220,27 +245,8 @@ def classify(
     Returns
     -------
     pandas.DataFrame
-        One row per item in input order, indexed by item label, with columns
-
-        - ``item``: the item label;
-        - ``pattern``: one of :data:`PATTERNS` or :data:`STATUSES`;
-        - ``reason``: why, in plain words;
-        - ``adi``, ``cv2``: the figures (NaN where undefined: no demand, or
-          CV² with fewer than two demands);
-        - ``n_demands``: periods with demand > 0 in the trimmed history;
-        - ``n_periods``: available periods in the trimmed history;
-        - ``unavailable_periods``: out-of-stock periods in the trimmed history;
-        - ``first_demand``, ``last_demand``: period labels (missing if never sold);
-        - ``leading_zeros``: periods between the item's first recorded period
-          and its first demand;
-        - ``mean_size``: mean of the non-zero sizes;
-        - ``mean_interval``: mean available periods between demands;
-        - ``quiet_periods``: available periods since the last demand;
-        - ``quiet_limit``: quiet periods that make the item ``gone-quiet``;
-        - ``volume``: total recorded demand;
-        - ``measured_pattern``: the pattern the figures alone indicate, also
-          for items given a status (missing where CV² is undefined).
-
+        One row per item in input order, indexed by item label, with the
+        columns listed under *The table* in the module docstring.
         ``table.attrs["classify_options"]`` records the options used.
 
     Examples
@@ -255,15 +261,8 @@ def classify(
     >>> table.loc[0, "reason"]
     'ADI 2.75 >= 1.32 and CV² 0.02 < 0.49: intermittent'
     """
-    options = _check_options(
-        adi_cutoff=adi_cutoff,
-        cv2_cutoff=cv2_cutoff,
-        rule=rule,
-        min_demands=min_demands,
-        min_periods=min_periods,
-        quiet_factor=quiet_factor,
-        quiet_min=quiet_min,
-    )
+    options = _check_options(adi_cutoff=adi_cutoff, cv2_cutoff=cv2_cutoff, rule=rule, min_demands=min_demands,
+                             min_periods=min_periods, quiet_factor=quiet_factor, quiet_min=quiet_min)
     panel = as_panel(data)
     figures = _figures(panel)
     table = _table(panel, figures, options)

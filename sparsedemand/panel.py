@@ -304,12 +304,11 @@ class DemandPanel:
 
 
 def as_panel(data, *, name: str = "data") -> DemandPanel:
-    """Accept a panel, a wide DataFrame (items x periods) or a 2-D array.
+    """Accept a panel or a 2-D array (one row per item); a 1-D array is one item.
 
-    A long DataFrame (with ``item``, ``period`` and ``quantity`` columns) is read
-    with the default column names through :func:`sparsedemand.io.from_frame`.
-    In a bare array, NaN marks a period with no valid observation (treated
-    as unavailable, not as zero demand).
+    In a bare array, NaN marks a period with no valid observation (treated as
+    unavailable, not as zero demand). DataFrames and Series are read by
+    :func:`sparsedemand.io.as_panel`, which builds on this function.
 
     Examples
     --------
@@ -318,12 +317,8 @@ def as_panel(data, *, name: str = "data") -> DemandPanel:
     """
     if isinstance(data, DemandPanel):
         return data
-    if isinstance(data, pd.DataFrame):
-        from .io import from_frame
-
-        return from_frame(data, source=name)
-    if isinstance(data, pd.Series):
-        return as_panel(data.to_frame().T, name=name)
+    if isinstance(data, (pd.DataFrame, pd.Series)):
+        raise InputError(f"{name}: a DataFrame is read by sparsedemand.io.as_panel, not panel.as_panel")
     arr = np.asarray(data, dtype=np.float64)
     if arr.ndim == 1:
         arr = arr[None, :]

@@ -51,6 +51,7 @@ Examples
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -320,7 +321,8 @@ def _distribution_targets(kind, params, mean, L, R, Q, target_kind, target, *, h
 def _history_panel(history, n: int):
     if history is None:
         return None
-    from .panel import DemandPanel, as_panel
+    from .io import as_panel
+    from .panel import DemandPanel
 
     panel = history if isinstance(history, DemandPanel) else as_panel(history, name="history")
     if panel.n_items != n:
@@ -413,7 +415,37 @@ def stock_targets(
     [5.0, 6.0, 5.0]
     """
     mean, kind, params, method = _unpack(forecast)
-    n = mean.shape[0]
+    opts = _checked_options(
+        mean.shape[0], kind, history=history, items=items, service_level=service_level,
+        fill_rate=fill_rate, lead_time=lead_time, review_period=review_period, on_hand=on_hand,
+        on_order=on_order, unit_price=unit_price, n_samples=n_samples, lot_size=lot_size, seed=seed,
+    )
+    result, label_col, lot = _targets_by_kind(mean, kind, params, opts, n_samples=n_samples,
+                                              jitter=jitter, max_units=max_units)
+    return _stock_table(opts, method, label_col, lot, result)
+
+
+@dataclass(frozen=True)
+class _Options:
+    """The checked per-item options of one :func:`stock_targets` call."""
+
+    items: pd.Index
+    labels: list
+    hist: tuple | None  # (values, start, mask) of the history panel
+    target_kind: str  # "cycle" or "fill"
+    target: float
+    L: np.ndarray
+    R: np.ndarray
+    hand: np.ndarray | None
+    order: np.ndarray
+    price: np.ndarray | None
+    lots: np.ndarray | None
+    seeds: np.ndarray
+
+
+def _checked_options(n, kind, *, history, items, service_level, fill_rate, lead_time, review_period,
+                     on_hand, on_order, unit_price, n_samples, lot_size, seed) -> _Options:
+    """Every option as a checked ``(n,)`` array; errors name the option and the item."""
     panel = _history_panel(history, n)
     hist = None if panel is None else (panel.values, panel.start, panel.mask())
     if items is None:
@@ -435,8 +467,24 @@ def stock_targets(
         first = labels[int(np.flatnonzero(kind == "empirical")[0])]
         raise InputError(f"item {first!r} uses the bootstrap distribution, which needs the demand history")
     lots = None if lot_size is None else _option(lot_size, n, "--lot-size", labels, minimum=0, strict=True)
-    seeds = label_seeds(labels, seed)
+    return _Options(items, labels, hist, target_kind, target, L, R, hand, order, price, lots,
+                    label_seeds(labels, seed))
 
+
+def _lot_sizes(k, rows, sub_mean, opts: _Options) -> np.ndarray:
+    """The order quantity ``Q`` of items ``rows`` (all of kind ``k``)."""
+    L, R = opts.L[rows], opts.R[rows]
+    if opts.lots is not None:
+        return opts.lots[rows]
+    if k == "empirical":  # the bootstrap's own demand rate, from the history
+        return np.maximum(1.0, _history_rate(*opts.hist, rows) * R)
+    # the forecast demand over one review period
+    return np.maximum(1.0, dist.period_totals(sub_mean, L + R) - dist.period_totals(sub_mean, L))
+
+
+def _targets_by_kind(mean, kind, params, opts: _Options, *, n_samples, jitter, max_units):
+    """Targets per item, computed kind by kind: (result columns, distribution labels, lot sizes)."""
+    n = mean.shape[0]
     result: dict[str, np.ndarray] = {}
     label_col = np.empty(n, dtype=object)
     lot = np.full(n, np.nan)
@@ -447,29 +495,28 @@ def stock_targets(
         sub = {key: np.asarray(v, dtype=np.float64)[rows] for key, v in params.items()
                if np.ndim(v) == 1 and len(v) == n}
         sub_mean = np.ascontiguousarray(mean[rows])
-        sub_labels = [labels[i] for i in rows]
-        if lots is not None:
-            q = lots[rows]
-        elif k == "empirical":  # the bootstrap's own demand rate, from the history
-            q = np.maximum(1.0, _history_rate(*hist, rows) * R[rows])
-        else:  # the forecast demand over one review period
-            q = np.maximum(1.0, dist.period_totals(sub_mean, L[rows] + R[rows])
-                           - dist.period_totals(sub_mean, L[rows]))
+        sub_labels = [opts.labels[i] for i in rows]
+        q = _lot_sizes(k, rows, sub_mean, opts)
+        L, R = opts.L[rows], opts.R[rows]
         if k == "normal":
             prm = dist.checked_params(k, sub, sub_mean, items=sub_labels)
-            res = _normal_targets(sub_mean, prm["sigma"], L[rows], R[rows], q, target_kind, target)
+            res = _normal_targets(sub_mean, prm["sigma"], L, R, q, opts.target_kind, opts.target)
         else:
             res = _distribution_targets(
-                k, sub, sub_mean, L[rows], R[rows], q, target_kind, target,
-                history=hist, history_rows=rows, seeds=seeds[rows],
+                k, sub, sub_mean, L, R, q, opts.target_kind, opts.target,
+                history=opts.hist, history_rows=rows, seeds=opts.seeds[rows],
                 items=sub_labels, n_samples=n_samples, jitter=jitter, max_units=max_units)
         for key, value in res.items():
             result.setdefault(key, np.full(n, np.nan))[rows] = value
         label_col[rows] = dist.distribution_labels(k, sub, rows.size)
         lot[rows] = q
+    return result, label_col, lot
 
-    table = pd.DataFrame({"item": items, "method": method, "distribution": label_col,
-                          "lead_time": L, "review_period": R})
+
+def _stock_table(opts: _Options, method, label_col, lot, result) -> pd.DataFrame:
+    """The stock table: targets, safety stock, the order now and values where prices are known."""
+    table = pd.DataFrame({"item": opts.items, "method": method, "distribution": label_col,
+                          "lead_time": opts.L, "review_period": opts.R})
     for key in ("mean_lead_time_demand", "mean_protection_demand"):
         table[key] = result[key]
     table["reorder_point"] = result["reorder_point"].astype(np.int64)
@@ -481,6 +528,7 @@ def stock_targets(
         table[key] = np.clip(result[key], 0.0, 1.0)
     table["lot_size"] = lot
     table["expected_on_hand"] = result["expected_on_hand"]
+    hand, order, price = opts.hand, opts.order, opts.price
     if hand is not None:
         table["on_hand"] = hand
         table["on_order"] = order
@@ -493,8 +541,8 @@ def stock_targets(
         if hand is not None:
             table["order_value"] = table["order_quantity"] * price
     table.attrs.update({
-        "target": "cycle service level" if target_kind == "cycle" else "fill rate",
-        "target_value": target,
+        "target": "cycle service level" if opts.target_kind == "cycle" else "fill rate",
+        "target_value": opts.target,
         "caution": STOCK_CAUTION,
     })
     return table

@@ -723,7 +723,7 @@ def test_write_table_rejects_other_suffixes(tmp_path, input_error):
 
 @pytest.mark.parametrize(("method", "name"), [("csv", "t.csv"), ("to_parquet", "t.parquet")])
 def test_write_table_failure_leaves_nothing(tmp_path, monkeypatch, method, name):
-    import sparsedemand.io as sdio
+    from sparsedemand.io import writing as sdio
 
     owner = sdio if method == "csv" else pd.DataFrame
     attr = "_write_csv" if method == "csv" else method
@@ -743,7 +743,7 @@ def test_write_table_failure_keeps_the_previous_file(tmp_path, monkeypatch):
     target = tmp_path / "t.csv"
     target.write_text("old\n")
 
-    import sparsedemand.io as sdio
+    from sparsedemand.io import writing as sdio
 
     def fail(*args, **kwargs):
         raise OSError("disk full")

@@ -6,7 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sparsedemand.panel import DemandPanel, as_panel, first_demand_offsets
+from sparsedemand.io import as_panel
+from sparsedemand.panel import DemandPanel, first_demand_offsets
 
 
 def make(values, *, items=None, periods=None, **kwargs) -> DemandPanel:

@@ -11,12 +11,10 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from .croston import bias_factor, croston_item
 from ._input import MethodFit, compound_params, constant_mean
+from ._recurrences import bias_factor, croston_item, ses_item, tsb_item
 from .events import Events, run_in_threads, size_moments
 from .optimize import MSE, STATE_SIZE, WORK_SIZE, plan_ask, plan_best, plan_start, plan_tell
-from .smoothing import ses_item
-from .tsb import tsb_item
 
 __all__ = ["CROSTON", "SBA", "SBJ", "TSB", "SES", "SMOOTH_ROWS", "smooth_item",
            "smooth_fit_item", "fit_smoothing", "fit_compound"]

@@ -39,8 +39,8 @@ from ._input import (
     constant_mean,
     run_public,
 )
+from ._recurrences import bias_factor
 from .events import run_in_threads, size_moments
-from .croston import bias_factor
 from .optimize import WORK_SIZE
 
 __all__ = ["adida", "imapa", "aggregate_item", "AGGREGATE_METHODS"]

@@ -23,8 +23,6 @@ demands before ``t``; costs are taken over ``t = 1 .. n-1``.
 
 from __future__ import annotations
 
-from numba import njit
-
 from ..errors import InputError
 from ._input import (
     MethodFit,
@@ -34,56 +32,13 @@ from ._input import (
     check_cost,
     run_public,
 )
-from .optimize import MAE, MSE, finish_cost, point_error, run_constant
+from ._fitting import fit_compound
+from ._recurrences import bias_factor, croston_item
 
 __all__ = ["croston", "sba", "sbj", "croston_item", "bias_factor", "SAME"]
 
 SAME = "same"
 _FACTOR = {"croston": 0, "sba": 1, "sbj": 2}
-
-
-@njit(cache=True, nogil=True)
-def bias_factor(code, beta):
-    """1 for Croston, ``1 - beta/2`` for SBA, ``1 - beta/(2 - beta)`` for SBJ."""
-    if code == 1:
-        return 1.0 - beta / 2.0
-    if code == 2:
-        return 1.0 - beta / (2.0 - beta)
-    return 1.0
-
-
-@njit(cache=True, nogil=True, fastmath={"contract"})
-def croston_item(pos, size, n, alpha, beta, factor_code, cost_code):
-    """One item: (forecast, in-sample cost, final size z, final interval x)."""
-    # ``z + a (y - z)`` is computed as ``(1 - a) z + a y``: equal up to rounding, and the
-    # running state then waits on one multiply-add per demand instead of three steps
-    c = bias_factor(factor_code, beta)
-    k = pos.shape[0]
-    z = size[0]
-    x = float(pos[1] - pos[0]) if k > 1 else 1.0
-    ra = 1.0 - alpha
-    rb = 1.0 - beta
-    f = c * z / x
-    acc = 0.0
-    acc_runs = 0.0  # squared or absolute errors of the zero runs, summed apart
-    cum = 0.0
-    for j in range(1, k):
-        gap = pos[j] - pos[j - 1]
-        y = size[j]
-        if cost_code == MSE:
-            acc_runs += (gap - 1) * (f * f)
-            acc += (y - f) * (y - f)
-        elif cost_code == MAE:
-            acc_runs += (gap - 1) * f
-            acc += abs(y - f)
-        else:
-            acc, cum = run_constant(cost_code, acc, cum, f, gap - 1)
-            acc, cum = point_error(cost_code, acc, cum, y - f)
-        z = ra * z + alpha * y
-        x = rb * x + beta * gap
-        f = c * z / x
-    acc, cum = run_constant(cost_code, acc + acc_runs, cum, f, n - 1 - pos[k - 1])
-    return f, finish_cost(acc, n - 1), z, x
 
 
 def fit_croston_family(
@@ -97,8 +52,6 @@ def fit_croston_family(
     bounds: tuple[float, float] = (0.01, 0.5),
 ) -> MethodFit:
     """Fit Croston, SBA or SBJ for every item (see the module docstring)."""
-    from ._fitting import fit_compound  # the shared driver imports this module
-
     a = check_constant("alpha", alpha)
     tie = isinstance(beta, str) and beta == SAME
     if isinstance(beta, str) and not tie:

@@ -20,8 +20,6 @@ coefficient of variation of 1).
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 from numba import njit
 
@@ -35,34 +33,12 @@ from ._input import (
     constant_mean,
     run_public,
 )
+from ._fitting import SES, SMOOTH_ROWS, fit_smoothing
+from ._recurrences import ses_item
 from .events import run_in_threads
-from .optimize import MSE, fill_powers, finish_cost, geometric_sums, point_error, run_constant, run_geometric
+from .optimize import MSE, finish_cost, point_error, run_constant
 
 __all__ = ["ses", "moving_average", "ses_item", "ma_item", "window_mean"]
-
-
-@njit("UniTuple(float64, 2)(int64[::1], float64[::1], int64, float64, int64, float64[::1])", cache=True, nogil=True)
-def ses_item(pos, size, n, alpha, cost_code, work):
-    """One item: (forecast, in-sample cost); ``work``: scratch of ``3 * POWERS`` floats."""
-    k = pos.shape[0]
-    level = size[0]
-    r = 1.0 - alpha
-    log_r = math.log(r) if r > 0.0 else -math.inf
-    fill_powers(work, r)
-    acc = 0.0
-    cum = 0.0
-    for j in range(1, k):
-        m = pos[j] - pos[j - 1] - 1
-        decay, sm, qm = geometric_sums(work, r, log_r, m)
-        acc, cum = run_geometric(cost_code, acc, cum, level, r, log_r, decay, sm, qm, m)
-        level *= decay
-        y = size[j]
-        acc, cum = point_error(cost_code, acc, cum, y - level)
-        level += alpha * (y - level)
-    m = n - 1 - pos[k - 1]
-    decay, sm, qm = geometric_sums(work, r, log_r, m)
-    acc, cum = run_geometric(cost_code, acc, cum, level, r, log_r, decay, sm, qm, m)
-    return level * decay, finish_cost(acc, n - 1)
 
 
 @njit(cache=True, nogil=True)
@@ -182,8 +158,6 @@ def fit_ses(
     bounds: tuple[float, float] = (0.01, 0.5),
 ) -> MethodFit:
     """Fit SES for every item (see the module docstring)."""
-    from ._fitting import SES, SMOOTH_ROWS, fit_smoothing  # the shared driver imports this module
-
     a = check_constant("alpha", alpha)
     code = check_cost(cost)
     lo, hi = check_bounds(bounds)

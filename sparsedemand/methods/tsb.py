@@ -17,10 +17,6 @@ multiplied by ``(1 - beta) ** m`` and the run's cost has a closed form.
 
 from __future__ import annotations
 
-import math
-
-from numba import njit
-
 from ._input import (
     MethodFit,
     PanelArrays,
@@ -29,40 +25,10 @@ from ._input import (
     check_cost,
     run_public,
 )
-from .optimize import fill_powers, finish_cost, geometric_sums, point_error, run_geometric
+from ._fitting import TSB, fit_compound
+from ._recurrences import tsb_item
 
 __all__ = ["tsb", "tsb_item"]
-
-
-@njit(cache=True, nogil=True)
-def tsb_item(pos, size, n, alpha, beta, cost_code, work):
-    """One item: (forecast, in-sample cost, final probability p, final size z).
-
-    ``work`` is scratch space of at least ``POWERS`` floats.
-    """
-    k = pos.shape[0]
-    z = size[0]
-    x = float(pos[1] - pos[0]) if k > 1 else 1.0
-    p = 1.0 / x
-    r = 1.0 - beta
-    log_r = math.log(r) if r > 0.0 else -math.inf
-    fill_powers(work, r)
-    acc = 0.0
-    cum = 0.0
-    for j in range(1, k):
-        m = pos[j] - pos[j - 1] - 1
-        decay, sm, qm = geometric_sums(work, r, log_r, m)
-        acc, cum = run_geometric(cost_code, acc, cum, p * z, r, log_r, decay, sm, qm, m)
-        p *= decay
-        y = size[j]
-        acc, cum = point_error(cost_code, acc, cum, y - p * z)
-        p += beta * (1.0 - p)
-        z += alpha * (y - z)
-    m = n - 1 - pos[k - 1]
-    decay, sm, qm = geometric_sums(work, r, log_r, m)
-    acc, cum = run_geometric(cost_code, acc, cum, p * z, r, log_r, decay, sm, qm, m)
-    p *= decay
-    return p * z, finish_cost(acc, n - 1), p, z
 
 
 def fit_tsb(
@@ -75,8 +41,6 @@ def fit_tsb(
     bounds: tuple[float, float] = (0.01, 0.5),
 ) -> MethodFit:
     """Fit TSB for every item (see the module docstring)."""
-    from ._fitting import TSB, fit_compound  # the shared driver imports this module
-
     a = check_constant("alpha", alpha)
     b = check_constant("beta", beta)
     code = check_cost(cost)
