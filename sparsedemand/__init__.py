@@ -20,7 +20,8 @@ import importlib
 __version__ = "0.1.0"
 
 from .errors import InputError
-from .panel import DemandPanel, as_panel
+from .io import as_panel
+from .panel import DemandPanel
 from .classify import classify  # eager: the function must shadow its module's name
 
 # Heavier stages (numba kernels) load on first use, so `import sparsedemand` stays quick.

@@ -10,7 +10,8 @@ import numpy as np
 import pandas as pd
 
 from .. import methods as _methods
-from ..panel import DemandPanel, as_panel
+from ..io import as_panel
+from ..panel import DemandPanel
 from ..route import CHANGE_LEVEL, DEFAULT_LEVELS, Rule
 from .forecasts import OriginForecast, predictive, router_forecast
 from .hierarchy import hierarchy_scores

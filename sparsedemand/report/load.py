@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..io import Columns, load_frame, read_demand
-from ..panel import DemandPanel, as_panel
+from ..io import Columns, as_panel, load_frame, read_demand
+from ..panel import DemandPanel
 
 # table name -> (columns it must have, the command that writes it)
 RUN_TABLES: dict[str, tuple[tuple[str, ...], str]] = {

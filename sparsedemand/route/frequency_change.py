@@ -12,7 +12,7 @@ import pandas as pd
 from numba import njit
 
 from ..errors import InputError
-from ..panel import as_panel
+from ..io import as_panel
 from .rules import CHANGE_LEVEL
 
 __all__ = ["rate_change"]

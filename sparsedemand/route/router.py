@@ -15,7 +15,8 @@ import numpy as np
 import pandas as pd
 
 from ..classify import classify as _classify
-from ..panel import DemandPanel, as_panel
+from ..io import as_panel
+from ..panel import DemandPanel
 from ._audit import _audit_table, _describe_params
 from ._fitting import _fit_with_fallback, _quantiles_for
 from ._holdout import _select_by_holdout
