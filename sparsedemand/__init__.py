@@ -17,8 +17,7 @@ from __future__ import annotations
 
 import importlib
 
-__version__ = "0.1.0"
-
+from ._version import __version__
 from .errors import InputError
 from .panel import DemandPanel, as_panel
 from .classify import classify  # eager: the function must shadow its module's name

@@ -19,7 +19,7 @@ distributed = pytest.importorskip(
     "distributed", reason="the Dask engine needs dask.distributed (pip install 'sparsedemand[dask]')"
 )
 
-from sparsedemand.cli import compute_stock  # noqa: E402
+from sparsedemand.runs import compute_stock  # noqa: E402
 from sparsedemand.demo import DemoSpec, make_demo  # noqa: E402
 from sparsedemand.engine import LOCAL_CLUSTER_OPTIONS, run_distributed  # noqa: E402
 from sparsedemand.errors import InputError  # noqa: E402
