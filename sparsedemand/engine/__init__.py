@@ -35,6 +35,12 @@ every partition has succeeded (:func:`sparsedemand.io.staged_output`), so on
 a real cluster ``DIR`` must be on storage that every worker and the client
 share.
 
+The package: :mod:`~sparsedemand.engine.cluster` (the client and running a
+function on every partition), :mod:`~sparsedemand.engine.partition` (the
+input as one panel per item partition on the global calendar) and
+:mod:`~sparsedemand.engine.run` (settings, each partition's whole command
+through :mod:`sparsedemand.runs`, the central steps and ``run.json``).
+
 Stock targets are decision support; follow the organisation's policies,
 regulations and qualified staff, especially for safety-critical spares.
 """

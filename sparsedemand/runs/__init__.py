@@ -16,12 +16,13 @@ Examples
 """
 
 from .commands import (RunResult, backtest_run, classify_run, compute_stock, forecast_run, format_table,
-                       lead_times, read_on_hand, resolved_overrides, routed_forecast, routing_summary, stock_horizon, stock_run,
-                       stock_table)
+                       lead_times, read_on_hand, resolved_overrides, routed_forecast, routing_summary,
+                       stock_horizon, stock_run, stock_table)
 from .settings import BacktestSettings, ClassifySettings, ForecastSettings, StockSettings, whole_number
 
 __all__ = [
     "ClassifySettings", "ForecastSettings", "BacktestSettings", "StockSettings", "whole_number",
     "RunResult", "classify_run", "forecast_run", "backtest_run", "stock_run", "stock_table", "compute_stock",
-    "stock_horizon", "routed_forecast", "lead_times", "read_on_hand", "resolved_overrides", "routing_summary", "format_table",
+    "stock_horizon", "routed_forecast", "lead_times", "read_on_hand", "resolved_overrides", "routing_summary",
+    "format_table",
 ]

@@ -33,7 +33,8 @@ from ..stock import stock_targets, totals_text
 from .settings import BacktestSettings, ClassifySettings, ForecastSettings, StockSettings
 
 __all__ = ["RunResult", "classify_run", "forecast_run", "backtest_run", "stock_run", "stock_table",
-           "compute_stock", "lead_times", "resolved_overrides", "read_on_hand", "routing_summary", "format_table"]
+           "compute_stock", "stock_horizon", "routed_forecast", "lead_times", "resolved_overrides",
+           "read_on_hand", "routing_summary", "format_table"]
 
 
 @dataclass(frozen=True)
