@@ -17,8 +17,7 @@ from __future__ import annotations
 
 import importlib
 
-__version__ = "0.1.0"
-
+from ._version import __version__
 from .errors import InputError
 from .io import as_panel
 from .panel import DemandPanel

@@ -1,26 +1,27 @@
-"""The ``sparsedemand`` command line.
+"""The ``sparsedemand`` command line: parsing and printing only.
 
-Every command reads and validates its input through :mod:`sparsedemand.io`,
-prints the load summary to stderr, and writes its outputs atomically. Bad
-input ends with one line ``error: ...`` and exit code 2, never a traceback.
+Every command turns its options into the settings of :mod:`sparsedemand.runs`,
+reads and validates its input through :mod:`sparsedemand.io`, prints the load
+summary to stderr, runs the command through the runs layer (or the Dask
+engine) and writes its outputs atomically. Bad input ends with one line
+``error: ...`` and exit code 2, never a traceback.
 """
 
 from __future__ import annotations
 
-import os
-import sys
-from pathlib import Path
-
 import contextlib
 import dataclasses
+import os
+import sys
+from dataclasses import dataclass
+from pathlib import Path
 
 import click
-import numpy as np
-import pandas as pd
 
-from . import __version__
+from ._version import __version__
 from .errors import InputError
 from .io import Columns, FREQUENCIES, read_demand
+
 
 class Console:
     """Where messages and progress go: stderr, silenced by ``--quiet``."""
@@ -69,43 +70,49 @@ def input_options(func):
     return func
 
 
-def pop_columns(kwargs: dict) -> Columns:
-    """The column names given by the shared input options."""
-    return Columns(
-        item=kwargs.pop("item_column"),
-        period=kwargs.pop("period_column"),
-        quantity=kwargs.pop("quantity_column"),
-        availability=kwargs.pop("availability_column"),
-        location=kwargs.pop("location_column"),
-        category=kwargs.pop("category_column"),
-        unit_price=kwargs.pop("price_column"),
-        attributes=tuple(kwargs.pop("attribute_columns")),
-    )
+@dataclass(frozen=True)
+class InputSpec:
+    """What the shared input options say: the file, its layout, columns and calendar."""
+
+    path: Path
+    layout: str
+    columns: Columns
+    frequency: str | None
+    net_returns: bool
+
+    def source(self) -> dict:
+        """The input's part of ``run.json``."""
+        return {"input": str(Path(self.path).resolve()), "layout": self.layout,
+                "columns": dataclasses.asdict(self.columns), "frequency": self.frequency,
+                "net_returns": self.net_returns}
+
+    def with_attribute(self, column: str | None) -> InputSpec:
+        """The same input, also keeping ``column`` as a per-item attribute."""
+        if not column:
+            return self
+        columns = dataclasses.replace(self.columns, attributes=(*self.columns.attributes, column))
+        return dataclasses.replace(self, columns=columns)
 
 
-def load_input(kwargs: dict, console: Console):
+def input_spec(input_path: Path, *, layout: str, item_column: str, period_column: str, quantity_column: str,
+               availability_column: str | None, location_column: str, category_column: str, price_column: str,
+               attribute_columns: tuple[str, ...], frequency: str | None, net_returns: bool) -> InputSpec:
+    """The shared input options as one object."""
+    columns = Columns(item=item_column, period=period_column, quantity=quantity_column,
+                      availability=availability_column, location=location_column, category=category_column,
+                      unit_price=price_column, attributes=tuple(attribute_columns))
+    return InputSpec(input_path, layout, columns, frequency, net_returns)
+
+
+def load_input(spec: InputSpec, console: Console):
     """Read the input named by the shared options; print the load summary."""
-    columns = pop_columns(kwargs)
-    path = kwargs.pop("input_path")
-    source = {
-        "input": str(Path(path).resolve()),
-        "layout": kwargs.pop("layout"),
-        "columns": dataclasses.asdict(columns),
-        "frequency": kwargs.pop("frequency"),
-        "net_returns": kwargs.pop("net_returns"),
-    }
-    panel, summary = read_demand(
-        path,
-        layout=source["layout"],
-        columns=columns,
-        frequency=source["frequency"],
-        net_returns=source["net_returns"],
-    )
+    panel, summary = read_demand(spec.path, layout=spec.layout, columns=spec.columns, frequency=spec.frequency,
+                                 net_returns=spec.net_returns)
     console.say(summary.text())
-    return panel, summary, source
+    return panel, summary
 
 
-def write_manifest(stage: Path, command: str, source: dict, **settings) -> None:
+def write_manifest(stage: Path, command: str, source: dict, settings: dict) -> None:
     """``run.json``: what was read and how, so the report can find the history again."""
     import json
 
@@ -113,6 +120,16 @@ def write_manifest(stage: Path, command: str, source: dict, **settings) -> None:
 
     manifest = {"command": command, "version": __version__, **source, **settings}
     write_text(json.dumps(manifest, indent=2, default=str) + "\n", stage / "run.json")
+
+
+def write_run(out_dir: Path, tables: dict, fmt: str, *, command: str, source: dict, settings: dict) -> None:
+    """A run folder: every table as ``NAME.fmt`` and ``run.json``, moved into place together."""
+    from .io import staged_output, write_table
+
+    with staged_output(out_dir) as stage:
+        for name, frame in tables.items():
+            write_table(frame, stage / f"{name}.{fmt}")
+        write_manifest(stage, command, source, settings)
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -163,41 +180,40 @@ def engine_options(func):
     return func
 
 
-def pop_engine(kwargs: dict, fmt: str) -> dict | None:
+@dataclass(frozen=True)
+class DaskSpec:
+    """Where a Dask run goes: a scheduler address (or a local cluster of ``workers``) and the partitions."""
+
+    scheduler: str | None
+    workers: int
+    partitions: int | None
+
+
+def dask_spec(*, engine: str, scheduler: str | None, workers: int, partitions: int | None, layout: str,
+              fmt: str) -> DaskSpec | None:
     """The Dask settings, or None for the local engine (unused Dask options are errors)."""
-    engine = {k: kwargs.pop(k) for k in ("engine", "scheduler", "workers", "partitions")}
-    if engine["engine"] == "local":
-        for option in ("scheduler", "partitions"):
-            if engine[option] is not None:
+    if engine == "local":
+        for option, value in (("scheduler", scheduler), ("partitions", partitions)):
+            if value is not None:
                 raise InputError(f"--{option} needs --engine dask")
         return None
-    if kwargs.get("layout") == "wide":
+    if layout == "wide":
         raise InputError("--engine dask reads the long layout only (one row per item and period)")
     if fmt != "parquet":
         raise InputError("--engine dask writes partitioned Parquet: add --format parquet")
-    return engine
+    return DaskSpec(scheduler, workers, partitions)
 
 
-def run_on_dask(command: str, engine: dict, kwargs: dict, out_dir: Path, console: Console, **options):
-    """Run one command on Dask with the CLI's options; returns the engine's run record."""
+def run_on_dask(command: str, settings, dask: DaskSpec, spec: InputSpec, out_dir: Path, console: Console):
+    """Run one command on Dask with the CLI's settings; returns the engine's run record."""
     try:
-        from .engine import run_distributed
+        from .engine import run_settings
     except ImportError:
         raise InputError("--engine dask needs the dask extra: pip install 'sparsedemand[dask]'") from None
 
-    columns = pop_columns(kwargs)
-    run = run_distributed(
-        command,
-        kwargs.pop("input_path"),
-        out_dir=out_dir,
-        scheduler=engine["scheduler"],
-        n_workers=engine["workers"],
-        partitions=engine["partitions"],
-        columns=columns,
-        frequency=kwargs.pop("frequency"),
-        net_returns=kwargs.pop("net_returns"),
-        **options,
-    )
+    run = run_settings(command, spec.path, settings, out_dir=out_dir, scheduler=dask.scheduler,
+                       n_workers=dask.workers, partitions=dask.partitions, columns=spec.columns,
+                       frequency=spec.frequency, net_returns=spec.net_returns)
     console.say(run.summary.text())
     return run
 
@@ -212,15 +228,6 @@ def output_options(folder_help: str):
                             type=click.Path(file_okay=False, path_type=Path), help=folder_help)(func)
 
     return apply
-
-
-def write_routed(stage: Path, result, fmt: str) -> None:
-    """The routed forecast's tables: forecasts, audit trail and patterns."""
-    from .io import write_table
-
-    write_table(result.table(), stage / f"forecasts.{fmt}")
-    write_table(result.audit, stage / f"audit.{fmt}")
-    write_table(result.classes, stage / f"patterns.{fmt}")
 
 
 # ------------------------------------------------------------------ classify
@@ -251,47 +258,55 @@ def classify_options(func):
     return func
 
 
-def pop_classify_options(kwargs: dict) -> dict:
-    opts = {
-        "adi_cutoff": kwargs.pop("adi_cutoff"),
-        "cv2_cutoff": kwargs.pop("cv2_cutoff"),
-        "rule": kwargs.pop("class_rule"),
-        "min_demands": kwargs.pop("min_demands"),
-        "min_periods": kwargs.pop("min_periods"),
-        "quiet_min": kwargs.pop("quiet_min"),
-    }
-    quiet = kwargs.pop("quiet_factor")
-    opts["quiet_factor"] = None if quiet == 0 else quiet
-    return opts
+def classify_settings(*, adi_cutoff: float, cv2_cutoff: float, class_rule: str, min_demands: int,
+                      min_periods: int, quiet_factor: float, quiet_min: int):
+    """The classifier options as settings (``--quiet-factor 0`` turns the check off)."""
+    from .runs import ClassifySettings
+
+    return ClassifySettings(adi_cutoff=adi_cutoff, cv2_cutoff=cv2_cutoff, rule=class_rule,
+                            min_demands=min_demands, min_periods=min_periods,
+                            quiet_factor=None if quiet_factor == 0 else quiet_factor, quiet_min=quiet_min)
+
+
+def input_and_classify(func):
+    """The shared input options and the classifier's options, in the order ``--help`` lists them."""
+    return input_options(classify_options(func))
 
 
 @cli.command("classify")
-@input_options
-@classify_options
+@input_and_classify
 @click.option("--out", "out_file", required=True, type=click.Path(dir_okay=False, path_type=Path),
               help="Table of patterns, one row per item (.csv or .parquet).")
-def classify_cmd(out_file: Path, **kwargs) -> None:
+def classify_cmd(input_path: Path, layout: str, item_column: str, period_column: str, quantity_column: str,
+                 availability_column: str | None, location_column: str, category_column: str, price_column: str,
+                 attribute_columns: tuple[str, ...], frequency: str | None, net_returns: bool, quiet: bool,
+                 adi_cutoff: float, cv2_cutoff: float, class_rule: str, min_demands: int, min_periods: int,
+                 quiet_factor: float, quiet_min: int, out_file: Path) -> None:
     """Sort every item into smooth, erratic, intermittent or lumpy demand, and say why."""
-    from .classify import classify, pattern_summary
     from .io import write_table
+    from .runs import classify_run
 
-    console = Console(kwargs.pop("quiet"))
-    copts = pop_classify_options(kwargs)
-    panel, _, _ = load_input(kwargs, console)
-    table = classify(panel, **copts)
-    write_table(table, out_file)
-    click.echo(_format_summary(pattern_summary(table, panel)))
+    console = Console(quiet)
+    settings = classify_settings(adi_cutoff=adi_cutoff, cv2_cutoff=cv2_cutoff, class_rule=class_rule,
+                                 min_demands=min_demands, min_periods=min_periods, quiet_factor=quiet_factor,
+                                 quiet_min=quiet_min)
+    spec = input_spec(input_path, layout=layout, item_column=item_column, period_column=period_column,
+                      quantity_column=quantity_column, availability_column=availability_column,
+                      location_column=location_column, category_column=category_column,
+                      price_column=price_column, attribute_columns=attribute_columns, frequency=frequency,
+                      net_returns=net_returns)
+    panel, _ = load_input(spec, console)
+    run = classify_run(panel, settings)
+    write_table(run.tables["patterns"], out_file)
+    click.echo(run.summary)
     console.say(f"wrote {out_file}")
-
-
-def _format_summary(frame) -> str:
-    return frame.to_string(float_format=lambda v: f"{v:,.3f}")
 
 
 # ------------------------------------------------------------------ forecast
 
 
-def _parse_levels(text: str) -> tuple[float, ...]:
+def parse_levels(text: str) -> tuple[float, ...]:
+    """``--quantiles``: levels separated by commas."""
     try:
         levels = tuple(float(x) for x in text.split(",") if x.strip())
     except ValueError:
@@ -326,163 +341,135 @@ def forecast_options(func):
     return func
 
 
-def pop_horizon(kwargs: dict) -> int:
-    horizon = kwargs.pop("horizon")
-    if horizon < 1:
-        raise InputError(f"--horizon must be at least 1, got {horizon}")
-    return horizon
-
-
-def pop_forecast_options(kwargs: dict) -> dict:
+def forecast_settings(*, horizon: int | None, levels: str, policy_file: Path | None, override_file: Path | None,
+                      cost: str, selection: str, seed: int, classify):
+    """The forecast options as settings; the policy file is read and checked before the input."""
     from .route import load_policy
+    from .runs import ForecastSettings
 
-    policy = kwargs.pop("policy_file")
-    return {
-        "levels": _parse_levels(kwargs.pop("levels")),
-        # the policy is checked before the (possibly large) input is read
-        "policy": load_policy(policy) if policy is not None else None,
-        "overrides": kwargs.pop("override_file"),
-        "cost": kwargs.pop("cost"),
-        "selection": kwargs.pop("selection"),
-        "seed": kwargs.pop("seed"),
-    }
+    return ForecastSettings(horizon=horizon, levels=parse_levels(levels),
+                            policy=load_policy(policy_file) if policy_file is not None else None,
+                            overrides=override_file, cost=cost, selection=selection, seed=seed, classify=classify)
 
 
 @cli.command("forecast")
-@input_options
-@classify_options
+@input_and_classify
 @horizon_option
 @forecast_options
 @engine_options
 @output_options("Folder for forecasts and the audit table.")
-def forecast_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
+def forecast_cmd(input_path: Path, layout: str, item_column: str, period_column: str, quantity_column: str,
+                 availability_column: str | None, location_column: str, category_column: str, price_column: str,
+                 attribute_columns: tuple[str, ...], frequency: str | None, net_returns: bool, quiet: bool,
+                 adi_cutoff: float, cv2_cutoff: float, class_rule: str, min_demands: int, min_periods: int,
+                 quiet_factor: float, quiet_min: int, horizon: int, levels: str, policy_file: Path | None,
+                 override_file: Path | None, cost: str, selection: str, seed: int, engine: str,
+                 scheduler: str | None, workers: int, partitions: int | None, out_dir: Path, fmt: str) -> None:
     """Route every item to a suitable method and forecast, with an audit trail."""
-    from .io import staged_output, write_table
+    from .runs import forecast_run, format_table
 
-    console = Console(kwargs.pop("quiet"))
-    copts = pop_classify_options(kwargs)
-    horizon = pop_horizon(kwargs)
-    fopts = pop_forecast_options(kwargs)
-    engine = pop_engine(kwargs, fmt)
-    if engine is not None:
-        run = run_on_dask("forecast", engine, kwargs, out_dir, console, horizon=horizon,
-                          classify_options=copts, **fopts)
-        click.echo(_format_summary(run.routing))
+    console = Console(quiet)
+    classify = classify_settings(adi_cutoff=adi_cutoff, cv2_cutoff=cv2_cutoff, class_rule=class_rule,
+                                 min_demands=min_demands, min_periods=min_periods, quiet_factor=quiet_factor,
+                                 quiet_min=quiet_min)
+    settings = forecast_settings(horizon=horizon, levels=levels, policy_file=policy_file,
+                                 override_file=override_file, cost=cost, selection=selection, seed=seed,
+                                 classify=classify)
+    dask = dask_spec(engine=engine, scheduler=scheduler, workers=workers, partitions=partitions, layout=layout,
+                     fmt=fmt)
+    spec = input_spec(input_path, layout=layout, item_column=item_column, period_column=period_column,
+                      quantity_column=quantity_column, availability_column=availability_column,
+                      location_column=location_column, category_column=category_column,
+                      price_column=price_column, attribute_columns=attribute_columns, frequency=frequency,
+                      net_returns=net_returns)
+    if dask is not None:
+        run = run_on_dask("forecast", settings, dask, spec, out_dir, console)
+        click.echo(format_table(run.routing))
         console.say(f"wrote {out_dir} ({run.partitions} partitions)")
         return
-    panel, _, source = load_input(kwargs, console)
-    result = routed_forecast(panel, horizon, fopts, copts, console)
-    with staged_output(out_dir) as stage:
-        write_routed(stage, result, fmt)
-        write_manifest(stage, "forecast", source, horizon=horizon, classify_options=copts,
-                       forecast_options=fopts)
-        if result.selection is not None:
-            write_table(result.selection, stage / f"selection.{fmt}")
-    click.echo(_format_summary(_routing_summary(result.audit)))
+    panel, _ = load_input(spec, console)
+    run = forecast_run(panel, settings, progress=console.progress)
+    write_run(out_dir, run.tables, fmt, command="forecast", source=spec.source(),
+              settings={"horizon": horizon, "classify_options": classify.options(),
+                        "forecast_options": settings.manifest()})
+    click.echo(run.summary)
     console.say(f"wrote {out_dir}/forecasts.{fmt} and {out_dir}/audit.{fmt}")
-
-
-def routed_forecast(panel, horizon: int, fopts: dict, copts: dict, console: Console):
-    """The router's forecast with the CLI's options (policy and override files read here)."""
-    from .route import forecast, load_overrides
-
-    options = dict(fopts)
-    overrides = options.pop("overrides")
-    return forecast(
-        panel,
-        horizon,
-        overrides=load_overrides(overrides) if overrides is not None else None,
-        classify_options=copts,
-        progress=console.progress,
-        **options,
-    )
-
-
-def _routing_summary(audit):
-    counts = audit.groupby(["pattern", "method"]).size().rename("items")
-    warned = audit["warnings"].astype(bool).groupby([audit["pattern"], audit["method"]]).sum()
-    table = pd.concat([counts, warned.rename("with_warnings")], axis=1).reset_index()
-    total = pd.DataFrame([{"pattern": "all", "method": "", "items": int(counts.sum()),
-                           "with_warnings": int(warned.sum())}])
-    return pd.concat([table, total], ignore_index=True).set_index(["pattern", "method"])
 
 
 # ------------------------------------------------------------------ backtest
 
 
+def backtest_options(func):
+    """Options of the backtest: origins, methods compared, the simulated stock policy, weights."""
+    options = [
+        click.option("--holdout", required=True, type=int, help="Periods scored after each origin."),
+        click.option("--origins", default=1, show_default=True, type=int,
+                     help="Forecast origins (rolling origin, expanding window)."),
+        click.option("--step", default=None, type=int, help="Periods between origins (default: --holdout)."),
+        click.option("--methods", "method_list", default=None,
+                     help="Methods to compare, comma separated (default: every method)."),
+        click.option("--baseline", default="mean_since_first", show_default=True,
+                     help="Method the relative MAE divides by."),
+        click.option("--lead-time", "sim_lead_time", default=1, show_default=True, type=int,
+                     help="Lead time of the simulated order-up-to policy."),
+        click.option("--review-period", "sim_review", default=1, show_default=True, type=int,
+                     help="Review period of the simulated policy."),
+        click.option("--service-level", "sim_service", default=0.95, show_default=True, type=float,
+                     help="Quantile of lead-time-plus-review demand the simulated policy orders up to."),
+        click.option("--unmet", type=click.Choice(["lost", "backorder"]), default="lost", show_default=True,
+                     help="What happens to demand the simulated stock cannot serve."),
+        click.option("--weights", type=click.Choice(["volume", "value"]), default="volume", show_default=True,
+                     help="Weighting of the weighted scores (value = unit price x units)."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
+
+
 @cli.command("backtest")
-@input_options
-@classify_options
+@input_and_classify
 @forecast_options
-@click.option("--holdout", required=True, type=int, help="Periods scored after each origin.")
-@click.option("--origins", default=1, show_default=True, type=int,
-              help="Forecast origins (rolling origin, expanding window).")
-@click.option("--step", default=None, type=int, help="Periods between origins (default: --holdout).")
-@click.option("--methods", "method_list", default=None,
-              help="Methods to compare, comma separated (default: every method).")
-@click.option("--baseline", default="mean_since_first", show_default=True,
-              help="Method the relative MAE divides by.")
-@click.option("--lead-time", "sim_lead_time", default=1, show_default=True, type=int,
-              help="Lead time of the simulated order-up-to policy.")
-@click.option("--review-period", "sim_review", default=1, show_default=True, type=int,
-              help="Review period of the simulated policy.")
-@click.option("--service-level", "sim_service", default=0.95, show_default=True, type=float,
-              help="Quantile of lead-time-plus-review demand the simulated policy orders up to.")
-@click.option("--unmet", type=click.Choice(["lost", "backorder"]), default="lost", show_default=True,
-              help="What happens to demand the simulated stock cannot serve.")
-@click.option("--weights", type=click.Choice(["volume", "value"]), default="volume", show_default=True,
-              help="Weighting of the weighted scores (value = unit price x units).")
+@backtest_options
 @engine_options
 @output_options("Folder for scores.csv and item_scores.csv.")
-def backtest_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
+def backtest_cmd(input_path: Path, layout: str, item_column: str, period_column: str, quantity_column: str,
+                 availability_column: str | None, location_column: str, category_column: str, price_column: str,
+                 attribute_columns: tuple[str, ...], frequency: str | None, net_returns: bool, quiet: bool,
+                 adi_cutoff: float, cv2_cutoff: float, class_rule: str, min_demands: int, min_periods: int,
+                 quiet_factor: float, quiet_min: int, levels: str, policy_file: Path | None,
+                 override_file: Path | None, cost: str, selection: str, seed: int, holdout: int, origins: int,
+                 step: int | None, method_list: str | None, baseline: str, sim_lead_time: int, sim_review: int,
+                 sim_service: float, unmet: str, weights: str, engine: str, scheduler: str | None, workers: int,
+                 partitions: int | None, out_dir: Path, fmt: str) -> None:
     """Score every method, the router and the naive baselines on your own history."""
-    from .evaluate import backtest
-    from .io import staged_output, write_table
+    from .runs import BacktestSettings, backtest_run
 
-    console = Console(kwargs.pop("quiet"))
-    copts = pop_classify_options(kwargs)
-    fopts = pop_forecast_options(kwargs)
-    methods = kwargs.pop("method_list")
-    bopts = {
-        "holdout": kwargs.pop("holdout"),
-        "origins": kwargs.pop("origins"),
-        "step": kwargs.pop("step"),
-        "methods": None if methods is None else tuple(m.strip() for m in methods.split(",") if m.strip()),
-        "baseline": kwargs.pop("baseline"),
-        "lead_time": kwargs.pop("sim_lead_time"),
-        "review_period": kwargs.pop("sim_review"),
-        "service_level": kwargs.pop("sim_service"),
-        "unmet": kwargs.pop("unmet"),
-        "weights": kwargs.pop("weights"),
-    }
-    if fopts.pop("selection") != "policy":
-        raise InputError("--selection holdout is for forecast; the backtest scores the policy's router")
-    engine = pop_engine(kwargs, fmt)
-    if engine is not None:
-        extra = {k: bopts[k] for k in ("methods", "baseline", "lead_time", "review_period",
-                                        "service_level", "unmet", "weights")}
-        run = run_on_dask("backtest", engine, kwargs, out_dir, console, classify_options=copts,
-                          holdout=bopts["holdout"], origins=bopts["origins"], step=bopts["step"],
-                          backtest_options=extra, **fopts)
+    console = Console(quiet)
+    classify = classify_settings(adi_cutoff=adi_cutoff, cv2_cutoff=cv2_cutoff, class_rule=class_rule,
+                                 min_demands=min_demands, min_periods=min_periods, quiet_factor=quiet_factor,
+                                 quiet_min=quiet_min)
+    forecast = forecast_settings(horizon=None, levels=levels, policy_file=policy_file, override_file=override_file,
+                                 cost=cost, selection=selection, seed=seed, classify=classify)
+    methods = None if method_list is None else tuple(m.strip() for m in method_list.split(",") if m.strip())
+    settings = BacktestSettings(holdout=holdout, origins=origins, step=step, methods=methods, baseline=baseline,
+                                lead_time=sim_lead_time, review_period=sim_review, service_level=sim_service,
+                                unmet=unmet, weights=weights, forecast=forecast)
+    dask = dask_spec(engine=engine, scheduler=scheduler, workers=workers, partitions=partitions, layout=layout,
+                     fmt=fmt)
+    spec = input_spec(input_path, layout=layout, item_column=item_column, period_column=period_column,
+                      quantity_column=quantity_column, availability_column=availability_column,
+                      location_column=location_column, category_column=category_column,
+                      price_column=price_column, attribute_columns=attribute_columns, frequency=frequency,
+                      net_returns=net_returns)
+    if dask is not None:
+        run = run_on_dask("backtest", settings, dask, spec, out_dir, console)
         console.say(f"wrote {out_dir}; left out on Dask: {', '.join(run.not_combined) or 'nothing'}")
         return
-    panel, _, source = load_input(kwargs, console)
-    from .route import load_overrides
-
-    overrides = fopts.pop("overrides")
-    result = backtest(
-        panel,
-        overrides=load_overrides(overrides) if overrides is not None else None,
-        classify_options=copts,
-        progress=console.progress,
-        **fopts,
-        **bopts,
-    )
-    with staged_output(out_dir) as stage:
-        write_table(result.scores, stage / f"scores.{fmt}")
-        write_table(result.item_scores, stage / f"item_scores.{fmt}")
-        write_manifest(stage, "backtest", source, classify_options=copts, backtest_options=bopts)
-    click.echo(result.summary_text())
+    panel, _ = load_input(spec, console)
+    run = backtest_run(panel, settings, progress=console.progress)
+    write_run(out_dir, run.tables, fmt, command="backtest", source=spec.source(),
+              settings={"classify_options": classify.options(), "backtest_options": settings.manifest()})
+    click.echo(run.summary)
     console.say(f"wrote {out_dir}/scores.{fmt} and {out_dir}/item_scores.{fmt}")
 
 
@@ -510,134 +497,53 @@ def stock_options(func):
     return func
 
 
-def pop_stock_options(kwargs: dict) -> dict:
-    opts = {k: kwargs.pop(k) for k in ("lead_time", "lead_time_column", "review_period",
-                                       "service_level", "fill_rate", "on_hand_file")}
-    if (opts["lead_time"] is None) == (opts["lead_time_column"] is None):
-        raise InputError("give exactly one of --lead-time and --lead-time-column")
-    if opts["service_level"] is None and opts["fill_rate"] is None:
-        opts["service_level"] = 0.95
-    if opts["lead_time_column"]:
-        kwargs["attribute_columns"] = tuple(kwargs["attribute_columns"]) + (opts["lead_time_column"],)
-    return opts
-
-
-def read_on_hand(path: Path, items, *, item_column: str = "item"):
-    """Current stock per item from a snapshot CSV, aligned to ``items`` (NaN where absent)."""
-    from .io import load_frame
-
-    frame = load_frame(path, text_columns=(item_column,))
-    for col in (item_column, "on_hand"):
-        if col not in frame.columns:
-            found = ", ".join(map(str, frame.columns))
-            raise InputError(f"{path}: missing column '{col}' (columns found: {found})")
-    labels = frame[item_column].astype(str).str.strip()
-    dup = labels.duplicated()
-    if dup.any():
-        row = int(np.flatnonzero(dup.to_numpy())[0]) + 1
-        raise InputError(f"{path}, row {row}: item {labels.iloc[row - 1]!r} appears twice")
-    pos = pd.Index(items).get_indexer(labels)
-    if (pos < 0).any():
-        row = int(np.flatnonzero(pos < 0)[0]) + 1
-        raise InputError(f"{path}, row {row}: unknown item {labels.iloc[row - 1]!r} (not in the input)")
-    out = {}
-    for col in ("on_hand", "on_order"):
-        if col not in frame.columns:
-            continue
-        vals = pd.to_numeric(frame[col], errors="coerce").to_numpy(np.float64)
-        bad = np.isnan(vals) & frame[col].notna().to_numpy() | (vals < 0)
-        if bad.any():
-            row = int(np.flatnonzero(bad)[0]) + 1
-            raise InputError(f"{path}, row {row}, item {labels.iloc[row - 1]!r}: "
-                             f"{col} {frame[col].iloc[row - 1]!r} is not a number >= 0")
-        aligned = np.full(len(items), np.nan)
-        aligned[pos] = vals
-        out[col] = aligned
-    return out
-
-
-def lead_times(panel, opts: dict):
-    """Lead time per item: the option, or the item's value in the lead-time column."""
-    column = opts["lead_time_column"]
-    if column is None:
-        return opts["lead_time"]
-    raw = panel.attribute(column)
-    vals = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=np.float64)
-    bad = ~np.isfinite(vals) | (vals < 0) | (vals != np.round(vals))
-    if bad.any():
-        item = panel.items[int(np.flatnonzero(bad)[0])]
-        raise InputError(f"--lead-time-column {column}: item {item!r} has lead time "
-                         f"{raw.iloc[int(np.flatnonzero(bad)[0])]!r}, not a whole number >= 0")
-    return vals.astype(np.int64)
-
-
-def compute_stock(result, opts: dict, *, snapshot: pd.DataFrame | None = None):
-    """Stock targets for a routed forecast, with the CLI's options.
-
-    ``snapshot`` (current ``on_hand`` and ``on_order`` indexed by item, already
-    checked against every item) is read from ``opts["on_hand_file"]`` when not
-    given; the Dask engine passes the one it checked for all partitions.
-    """
-    from .stock import stock_targets
-
-    panel = result.panel
-    if snapshot is None and opts["on_hand_file"] is not None:
-        snapshot = pd.DataFrame(read_on_hand(opts["on_hand_file"], panel.items), index=panel.items)
-    extra = {}
-    if snapshot is not None:
-        aligned = snapshot.reindex(panel.items)
-        for column in aligned.columns:
-            extra[column] = aligned[column].to_numpy(dtype=np.float64)
-    price = panel.attribute("unit_price")
-    if price.notna().any():
-        extra["unit_price"] = price.to_numpy(dtype=float)
-    return stock_targets(
-        result.item_forecasts(),
-        lead_time=lead_times(panel, opts),
-        review_period=opts["review_period"],
-        service_level=opts["service_level"],
-        fill_rate=opts["fill_rate"],
-        history=panel,
-        items=panel.items,
-        seed=opts.get("seed", 0),
-        **extra,
-    )
-
-
 @cli.command("stock")
-@input_options
-@classify_options
+@input_and_classify
 @forecast_options
 @stock_options
 @engine_options
 @output_options("Folder for stock.csv (and the forecasts and audit behind it).")
-def stock_cmd(out_dir: Path, fmt: str, **kwargs) -> None:
+def stock_cmd(input_path: Path, layout: str, item_column: str, period_column: str, quantity_column: str,
+              availability_column: str | None, location_column: str, category_column: str, price_column: str,
+              attribute_columns: tuple[str, ...], frequency: str | None, net_returns: bool, quiet: bool,
+              adi_cutoff: float, cv2_cutoff: float, class_rule: str, min_demands: int, min_periods: int,
+              quiet_factor: float, quiet_min: int, levels: str, policy_file: Path | None,
+              override_file: Path | None, cost: str, selection: str, seed: int, lead_time: int | None,
+              lead_time_column: str | None, review_period: int, service_level: float | None,
+              fill_rate: float | None, on_hand_file: Path | None, engine: str, scheduler: str | None,
+              workers: int, partitions: int | None, out_dir: Path, fmt: str) -> None:
     """Reorder points and order-up-to levels from the routed forecast distributions."""
-    from .io import staged_output, write_table
+    import pandas as pd
+
+    from .runs import StockSettings, stock_run
     from .stock import totals_text
 
-    console = Console(kwargs.pop("quiet"))
-    copts = pop_classify_options(kwargs)
-    fopts = pop_forecast_options(kwargs)
-    sopts = pop_stock_options(kwargs)
-    engine = pop_engine(kwargs, fmt)
-    if engine is not None:
-        run = run_on_dask("stock", engine, kwargs, out_dir, console, classify_options=copts,
-                          **fopts, **sopts)
+    console = Console(quiet)
+    classify = classify_settings(adi_cutoff=adi_cutoff, cv2_cutoff=cv2_cutoff, class_rule=class_rule,
+                                 min_demands=min_demands, min_periods=min_periods, quiet_factor=quiet_factor,
+                                 quiet_min=quiet_min)
+    forecast = forecast_settings(horizon=None, levels=levels, policy_file=policy_file, override_file=override_file,
+                                 cost=cost, selection=selection, seed=seed, classify=classify)
+    settings = StockSettings(lead_time=lead_time, lead_time_column=lead_time_column, review_period=review_period,
+                             service_level=service_level, fill_rate=fill_rate, on_hand_file=on_hand_file,
+                             seed=seed, forecast=forecast)
+    spec = input_spec(input_path, layout=layout, item_column=item_column, period_column=period_column,
+                      quantity_column=quantity_column, availability_column=availability_column,
+                      location_column=location_column, category_column=category_column,
+                      price_column=price_column, attribute_columns=attribute_columns, frequency=frequency,
+                      net_returns=net_returns).with_attribute(lead_time_column)
+    dask = dask_spec(engine=engine, scheduler=scheduler, workers=workers, partitions=partitions, layout=layout,
+                     fmt=fmt)
+    if dask is not None:
+        run = run_on_dask("stock", settings, dask, spec, out_dir, console)
         click.echo(totals_text(pd.read_parquet(run.paths["stock"])))
         return
-    sopts["seed"] = fopts["seed"]
-    panel, _, source = load_input(kwargs, console)
-    # The forecast must cover the whole protection interval (lead time + review period).
-    horizon = int(np.max(lead_times(panel, sopts))) + sopts["review_period"]
-    result = routed_forecast(panel, horizon, fopts, copts, console)
-    table = compute_stock(result, sopts)
-    with staged_output(out_dir) as stage:
-        write_table(table, stage / f"stock.{fmt}")
-        write_routed(stage, result, fmt)
-        write_manifest(stage, "stock", source, horizon=horizon, classify_options=copts,
-                       forecast_options=fopts, stock_options=sopts)
-    click.echo(totals_text(table))
+    panel, _ = load_input(spec, console)
+    run = stock_run(panel, settings, progress=console.progress)
+    write_run(out_dir, run.tables, fmt, command="stock", source=spec.source(),
+              settings={"horizon": run.horizon, "classify_options": classify.options(),
+                        "forecast_options": forecast.manifest(), "stock_options": settings.manifest()})
+    click.echo(run.summary)
     console.say(f"wrote {out_dir}/stock.{fmt}")
 
 

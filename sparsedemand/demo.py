@@ -236,33 +236,31 @@ def run_demo(
 
 def run_job(panel, out, *, horizon: int, seed: int, say=print, lead_time_column: str = "lead_time",
             service_level: float = 0.95, review_period: int = 1) -> dict:
-    """Classify, forecast, backtest, stock and report on one panel (the demo's chain)."""
+    """Classify, forecast, backtest, stock and report on one panel (the demo's chain).
+
+    The forecast runs over the demo's horizon; the stock targets use that
+    forecast; the backtest holds out one horizon at three origins.
+    """
     from pathlib import Path
 
     from .classify import pattern_summary
     from .io import staged_output, write_table
     from .report import build_report
-    from .route import forecast
-    from .stock import stock_targets, totals_text
+    from .runs import BacktestSettings, ForecastSettings, StockSettings, backtest_run, forecast_run, format_table
+    from .runs import stock_table
+    from .stock import totals_text
 
     out = Path(out)
-    result = forecast(panel, horizon, seed=seed)
-    say("patterns:\n" + pattern_summary(result.classes, panel).to_string(float_format=lambda v: f"{v:,.3f}"))
-    lead = panel.attribute(lead_time_column, default=1).to_numpy(dtype=np.int64)
-    price = panel.attribute("unit_price")
-    stock = stock_targets(
-        result.item_forecasts(),
-        lead_time=lead,
-        review_period=review_period,
-        service_level=service_level,
-        unit_price=None if price.isna().all() else price.to_numpy(dtype=float),
-        history=panel,
-        items=panel.items,
-        seed=seed,
-    )
+    forecast = forecast_run(panel, ForecastSettings(horizon=horizon, seed=seed))
+    result = forecast.result
+    say("patterns:\n" + format_table(pattern_summary(result.classes, panel)))
+    stock = stock_table(result, StockSettings(lead_time_column=lead_time_column, review_period=review_period,
+                                              service_level=service_level, seed=seed))
     tables = {"patterns": result.classes, "forecasts": result.table(), "audit": result.audit,
               "stock": stock}
-    tables.update(_backtest_tables(panel, horizon=horizon, seed=seed, say=say))
+    scores = backtest_run(panel, BacktestSettings(holdout=horizon, origins=3, forecast=ForecastSettings(seed=seed)))
+    say(scores.summary)
+    tables.update(scores.tables)
     with staged_output(out) as stage:
         for name, frame in tables.items():
             write_table(frame, stage / f"{name}.csv")
@@ -271,11 +269,3 @@ def run_job(panel, out, *, horizon: int, seed: int, say=print, lead_time_column:
     written["report"] = build_report(out, out=out / "report.html", history=panel)
     say(f"wrote {len(written)} files to {out}; open {written['report']} in a browser")
     return written
-
-
-def _backtest_tables(panel, *, horizon: int, seed: int, say) -> dict:
-    from .evaluate import backtest
-
-    result = backtest(panel, holdout=horizon, origins=3, seed=seed)
-    say(result.summary_text())
-    return {"scores": result.scores, "item_scores": result.item_scores}

@@ -19,7 +19,7 @@ import pytest
 import distributed
 
 from sparsedemand import evaluate
-from sparsedemand.cli import compute_stock
+from sparsedemand.runs import compute_stock
 from sparsedemand.demo import DemoSpec, make_demo
 from sparsedemand.engine import LOCAL_CLUSTER_OPTIONS, run_distributed
 from sparsedemand.errors import InputError
