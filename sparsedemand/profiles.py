@@ -1,0 +1,660 @@
+"""Multiplicative calendar profiles per item: estimation, shrinkage and the decision.
+
+A profile scales an item's flat level by a factor per calendar slot: ``weekday``
+(7 slots, Monday first) for daily panels, and ``month`` of year (12 slots) for
+day, week (the month holding the week's middle day) or month panels, the latter
+only for items with at least two full years (730 days, 104 weeks, 24 months)
+from their first demand. Integer calendars get no profile. Both kinds multiply.
+
+Estimation
+    Only in-stock periods from the item's first demand on count. For slot ``s``
+    let ``E_s`` be the exposure (in-stock periods), ``V_s`` the volume and
+    ``n_s`` the demands (periods with a sale). The raw factor is
+    ``(V_s / E_s) / (V / E)``; every profile is normalised so that one full
+    cycle averages to 1 (weekdays equally weighted; months by their days in
+    day and week panels, equally in month panels). The two kinds are estimated
+    from their own marginal tallies (a year holds almost equal shares of each
+    weekday per month). A group profile is ``sum_i V_is / sum_i E_is r_i``
+    (``r_i = V_i / E_i``): pooled volumes against what flat items would have
+    sold in the same in-stock periods.
+
+Tests (per item and kind, ``S`` slots with exposure, ``p = n / E``)
+    * occurrence: Pearson chi-square of the 2 x S table (sold / not sold by
+      slot), ``sum_s (n_s - e_s)^2 / (e_s (1 - e_s / E_s))`` with ``e_s`` the
+      demands expected under the null profile, ``S - 1`` degrees of freedom;
+    * volume (only with at least ``volume_demands_per_slot * S`` demands, where
+      slot means are close to normal): quasi-Poisson F test,
+      ``F = sum_s (V_s - m_s)^2 / (E_s sigma^2) / (S - 1)`` on ``(S - 1, E - S)``
+      degrees of freedom, ``m_s`` the volume expected under the null profile
+      and ``sigma^2`` the pooled within-slot variance of period demand (so
+      overdispersion is allowed). Against a flat profile this is one-way ANOVA.
+    * combined: ``p = min(1, 2 min(p_occurrence, p_volume))`` (Bonferroni) where
+      the volume test applies, else ``p_occurrence``; items with fewer than
+      ``item_demands_per_slot * S`` demands are not tested (``p = 1``).
+    * group: ``X^2 = sum_s (V_gs - m_gs)^2 / sum_i E_is sigma_i^2`` against
+      ``chi2(S - 1)``, ``m_gs = sum_i E_is r_i``: items are independent given
+      the profile, each with its own overdispersed variance.
+    * fit to the group: the same item tests with the group profile as the null
+      (volume test where it applies, occurrence test otherwise: a fast item's
+      cycle lives in its sizes, not in its occurrences).
+    Benjamini-Hochberg q-values are taken per kind over the item tests, over
+    the group tests and over the fit tests; a test is significant at
+    ``q <= fdr``.
+
+Decision (per item and kind)
+    1. The reference group is the most specific level (location x category,
+       category, location, all items; a missing attribute skips its levels)
+       whose group has at least ``group_demands_per_slot * S`` demands. A
+       group that has the demands but shows no cycle is evidence against a
+       cycle for its members, so the search does not climb past it.
+    2. The group counts when its test is significant and the item's fit test
+       against it is not.
+    3. Item significant, group counts: ``own shrunk toward <level>``. Item
+       significant, group does not count: ``own shrunk toward flat``. Item not
+       significant, group counts: ``<level>``. Otherwise ``none``.
+
+Shrinkage (Buhlmann-Straub credibility, from memory: Buhlmann and Straub 1970;
+Klugman, Panjer and Willmot, *Loss Models*)
+    ``f_s = w_s x_s + (1 - w_s) c_s``, ``x_s`` the item's raw factor, ``c_s`` the
+    group's profile (flat where the group does not count), ``w_s = m_s / (m_s + k)``
+    with ``m_s = E_s n / E`` the slot's demands at the item's overall demand
+    rate (a slot where a slow item never sells still carries weight). The
+    variance of ``x_s`` is about ``s2 / m_s``; per reference group ``k = s2 / a``
+    with ``s2`` the demand-weighted mean of ``sigma_i^2 p_i / r_i^2`` and
+    ``a = sum_s [sum_i m_is (x_is - c_s)^2 - I_s s2] / sum_is m_is`` the
+    between-item variance around ``c`` (``I_s`` items with exposure in the
+    slot); ``k`` is infinite when ``a <= 0``. The result is normalised again.
+
+Examples
+--------
+>>> import numpy as np, pandas as pd
+>>> from sparsedemand.panel import DemandPanel
+>>> periods = pd.period_range("2024-01-01", periods=28, freq="D")
+>>> p = DemandPanel(np.ones((1, 28)), items=pd.Index(["A"]), periods=periods)
+>>> estimate_profiles(p).tables[0].source.tolist()
+['none']
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+import pandas as pd
+from numba import njit
+from scipy import stats
+
+from .errors import InputError
+from .panel import DemandPanel
+
+__all__ = [
+    "CalendarProfiles", "ProfileTable", "estimate_profiles", "profile_kinds", "calendar_slots",
+    "future_calendar", "benjamini_hochberg", "occurrence_test", "volume_test",
+]
+
+WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
+MONTHS = ("Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec")
+_MONTH_DAYS = np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=np.float64)
+_TWO_YEARS = {"day": 730, "week": 104, "month": 24}
+LEVELS = ("location x category", "category", "location", "all items")
+
+
+# ------------------------------------------------------------------------------ slots
+def profile_kinds(frequency: str | None) -> tuple[str, ...]:
+    """Profile kinds that apply to a calendar frequency.
+
+    Examples
+    --------
+    >>> profile_kinds("day"), profile_kinds("week"), profile_kinds(None)
+    (('weekday', 'month'), ('month',), ())
+    """
+    return {"day": ("weekday", "month"), "week": ("month",), "month": ("month",)}.get(
+        frequency or "", ()
+    )
+
+
+def calendar_slots(periods: pd.Index, kind: str) -> np.ndarray:
+    """Slot index (int64) of each period: weekday 0 = Monday, month 0 = January.
+
+    A week belongs to the month of its middle (fourth) day, which holds most of
+    its days.
+
+    Examples
+    --------
+    >>> calendar_slots(pd.period_range("2024-01-01", periods=3, freq="D"), "weekday")
+    array([0, 1, 2])
+    """
+    if not isinstance(periods, pd.PeriodIndex):
+        raise InputError("calendar profiles need day, week or month periods")
+    code = periods.freqstr
+    if kind == "weekday":
+        if code != "D":
+            raise InputError(f"a weekday profile needs daily periods, got {code!r}")
+        return np.asarray(periods.day_of_week, dtype=np.int64)
+    if kind != "month":
+        raise InputError(f"unknown profile kind {kind!r}")
+    if code.startswith("W"):
+        middle = periods.start_time + pd.Timedelta(days=3)
+        return np.asarray(middle.month, dtype=np.int64) - 1
+    return np.asarray(periods.month, dtype=np.int64) - 1
+
+
+def future_calendar(periods: pd.Index, horizon: int) -> pd.Index:
+    """The ``horizon`` periods after ``periods`` (as ``DemandPanel.future_periods``)."""
+    if isinstance(periods, pd.PeriodIndex) and len(periods):
+        return pd.period_range(periods[-1] + 1, periods=horizon, freq=periods.freq)
+    stop = int(periods[-1]) + 1 if len(periods) else 0
+    return pd.RangeIndex(stop, stop + horizon)
+
+
+def _cycle_weights(kind: str, frequency: str) -> np.ndarray:
+    """Weight of each slot in one full cycle, for the normalisation."""
+    if kind == "weekday" or frequency == "month":
+        return np.ones(7 if kind == "weekday" else 12)
+    return _MONTH_DAYS.copy()
+
+
+def _normalise(factors: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    mean = factors @ weights / weights.sum()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = factors / mean[:, None]
+    return np.where(np.isfinite(out), out, 1.0)
+
+
+# ---------------------------------------------------------------------------- tallies
+@njit(cache=True, nogil=True)
+def _tally_kernel(values, start, available, has_mask, slots, n_slots):
+    """Per item and slot: exposure, volume, squared volume, demands (in stock, from start)."""
+    n_items, n_periods = values.shape
+    out = np.zeros((n_items, n_slots, 4))
+    for i in range(n_items):
+        for t in range(start[i], n_periods):
+            if has_mask and not available[i, t]:
+                continue
+            y = values[i, t]
+            s = slots[t]
+            out[i, s, 0] += 1.0
+            out[i, s, 1] += y
+            out[i, s, 2] += y * y
+            if y > 0:
+                out[i, s, 3] += 1.0
+    return out
+
+
+@dataclass(frozen=True)
+class _Tally:
+    exposure: np.ndarray  # items x slots
+    volume: np.ndarray
+    squares: np.ndarray
+    demands: np.ndarray
+
+    def rows(self, keep: np.ndarray) -> _Tally:
+        return _Tally(self.exposure[keep], self.volume[keep], self.squares[keep], self.demands[keep])
+
+
+def _tally(panel: DemandPanel, slots: np.ndarray, n_slots: int) -> _Tally:
+    has_mask = panel.available is not None
+    mask = panel.available if has_mask else np.ones((1, 1), dtype=np.bool_)
+    out = _tally_kernel(panel.values, panel.start, mask, has_mask, slots, n_slots)
+    return _Tally(out[..., 0], out[..., 1], out[..., 2], out[..., 3])
+
+
+def _within_variance(t: _Tally) -> tuple[np.ndarray, np.ndarray]:
+    """Pooled within-slot variance of period demand and its degrees of freedom."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        between = np.where(t.exposure > 0, t.volume**2 / t.exposure, 0.0)
+    df = t.exposure.sum(axis=1) - (t.exposure > 0).sum(axis=1)
+    ss = np.maximum(t.squares.sum(axis=1) - between.sum(axis=1), 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(df > 0, ss / df, np.nan), df
+
+
+# ------------------------------------------------------------------------------ tests
+def occurrence_test(demands, exposure, profile=None) -> tuple[np.ndarray, np.ndarray]:
+    """Pearson chi-square of demand occurrences by slot against a profile (flat by default).
+
+    Rows are items, columns slots. Against a flat profile it is the test of
+    independence of the 2 x S table (sold / not sold by slot). Returns the
+    statistic and p-value per row (p = 1 where nothing can be tested).
+
+    Examples
+    --------
+    >>> stat, p = occurrence_test(np.array([[10., 0.]]), np.array([[20., 20.]]))
+    >>> round(float(stat[0]), 3)
+    13.333
+    """
+    n, e = np.atleast_2d(demands).astype(float), np.atleast_2d(exposure).astype(float)
+    g = np.ones_like(e) if profile is None else np.broadcast_to(profile, e.shape)
+    open_ = e > 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(open_, e * g, 0.0)
+        expected = n.sum(axis=1, keepdims=True) * share / share.sum(axis=1, keepdims=True)
+        rate = np.minimum(np.where(open_, expected / e, 0.0), 1.0)
+        cell = (n - expected) ** 2 / (expected * (1.0 - rate))
+    stat = np.where(open_ & (expected > 0) & (rate < 1.0), cell, 0.0).sum(axis=1)
+    df = open_.sum(axis=1) - 1
+    p = np.where(df > 0, stats.chi2.sf(stat, np.maximum(df, 1)), 1.0)
+    return stat, np.where(np.isfinite(p), p, 1.0)
+
+
+def volume_test(volume, squares, exposure, profile=None) -> tuple[np.ndarray, np.ndarray]:
+    """Quasi-Poisson F test of volume by slot against a profile (flat by default).
+
+    ``F = sum_s (V_s - m_s)^2 / (E_s sigma^2) / (S - 1)`` on ``(S - 1, E - S)``
+    degrees of freedom; against a flat profile it equals one-way ANOVA of the
+    period demands by slot.
+
+    Examples
+    --------
+    >>> t = volume_test(np.array([[6., 2.]]), np.array([[14., 2.]]), np.array([[3., 3.]]))
+    >>> round(float(t[0][0]), 3)
+    4.0
+    """
+    t = _Tally(*(np.atleast_2d(a).astype(float) for a in (exposure, volume, squares, volume)))
+    sigma2, df2 = _within_variance(t)
+    e = t.exposure
+    g = np.ones_like(e) if profile is None else np.broadcast_to(profile, e.shape)
+    open_ = e > 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(open_, e * g, 0.0)
+        expected = t.volume.sum(axis=1, keepdims=True) * share / share.sum(axis=1, keepdims=True)
+        cell = np.where(open_, (t.volume - expected) ** 2 / e, 0.0).sum(axis=1)
+        df1 = open_.sum(axis=1) - 1
+        f = cell / sigma2[:] / np.maximum(df1, 1)
+    ok = (df1 > 0) & (df2 > 0) & np.isfinite(f)
+    p = np.where(ok, stats.f.sf(np.where(ok, f, 0.0), np.maximum(df1, 1), np.maximum(df2, 1)), 1.0)
+    # no spread within slots at all: any difference between slots is certain
+    exact = (df1 > 0) & (sigma2 == 0) & (cell > 0)
+    p = np.where(exact, 0.0, p)
+    return np.where(ok | exact, f, np.nan), np.where(np.isfinite(p), p, 1.0)
+
+
+def benjamini_hochberg(p: np.ndarray) -> np.ndarray:
+    """Benjamini-Hochberg adjusted p-values (q-values); NaN stays NaN.
+
+    Examples
+    --------
+    >>> benjamini_hochberg(np.array([0.01, 0.04, 0.03])).round(3).tolist()
+    [0.03, 0.04, 0.04]
+    """
+    p = np.asarray(p, dtype=np.float64)
+    q = np.full(p.shape, np.nan)
+    ok = np.flatnonzero(np.isfinite(p))
+    if ok.size == 0:
+        return q
+    order = ok[np.argsort(p[ok], kind="stable")]
+    ranked = p[order] * ok.size / np.arange(1, ok.size + 1)
+    q[order] = np.minimum(np.minimum.accumulate(ranked[::-1])[::-1], 1.0)
+    return q
+
+
+def _item_tests(t: _Tally, profile, min_demands: float, volume_demands: float):
+    """Combined item test against ``profile`` (None = flat): statistics, p-values."""
+    n = t.demands.sum(axis=1)
+    occ, p_occ = occurrence_test(t.demands, t.exposure, profile)
+    vol, p_vol = volume_test(t.volume, t.squares, t.exposure, profile)
+    use_vol = n >= volume_demands
+    p = np.where(use_vol, np.minimum(1.0, 2.0 * np.minimum(p_occ, p_vol)), p_occ)
+    tested = n >= min_demands
+    return (np.where(tested, occ, np.nan), np.where(tested & use_vol, vol, np.nan),
+            np.where(tested, p, np.nan), np.where(tested & use_vol, p_vol, p_occ))
+
+
+# ------------------------------------------------------------------------------ groups
+def _group_codes(panel: DemandPanel) -> list[tuple[str, np.ndarray]]:
+    """Group codes per level (-1 where the item has no group there), specific first."""
+    have = {c for c in ("location", "category") if panel.attributes is not None
+            and c in panel.attributes.columns}
+    codes = {c: pd.factorize(panel.attribute(c), use_na_sentinel=True)[0] for c in have}
+    out = []
+    if have == {"location", "category"}:
+        both = (codes["location"] >= 0) & (codes["category"] >= 0)
+        pair = np.where(both, codes["location"] * (codes["category"].max() + 1)
+                        + codes["category"], -1)
+        out.append((LEVELS[0], np.where(both, np.unique(pair, return_inverse=True)[1], -1)))
+    out += [(name, codes[name]) for name in ("category", "location") if name in have]
+    out.append((LEVELS[3], np.zeros(panel.n_items, dtype=np.int64)))
+    return out
+
+
+def _group_label(panel: DemandPanel, level: str, row: int) -> str:
+    if level == LEVELS[3]:
+        return "all items"
+    parts = ("location", "category") if level == LEVELS[0] else (level,)
+    return " / ".join(str(panel.attribute(c).iloc[row]) for c in parts)
+
+
+def _sum_by(codes: np.ndarray, n_groups: int, x: np.ndarray) -> np.ndarray:
+    """Column sums of ``x`` (items x slots) per group code (codes < 0 dropped)."""
+    keep = codes >= 0
+    cols = [np.bincount(codes[keep], weights=x[keep, j], minlength=n_groups)
+            for j in range(x.shape[1])]
+    return np.stack(cols, axis=1)
+
+
+def _slot_demands(t: _Tally) -> np.ndarray:
+    """Demands each slot would have at the item's overall demand rate: the weight of its factor.
+
+    Observed demands would give a slot where the item never sells no weight at all.
+    """
+    e = t.exposure.sum(axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.nan_to_num(t.exposure * t.demands.sum(axis=1, keepdims=True) / e)
+
+
+def _credibility_k(codes, n_groups, raw, t: _Tally, s2_item, center) -> np.ndarray:
+    """Buhlmann-Straub ``k = s2 / a`` per group around ``center`` (inf where a <= 0)."""
+    n = _slot_demands(t)
+    n_item = n.sum(axis=1, keepdims=True)
+    m = _sum_by(codes, n_groups, n)
+    s2 = _sum_by(codes, n_groups, n_item * s2_item[:, None])[:, 0] / np.maximum(m.sum(axis=1), 1.0)
+    spread = (_sum_by(codes, n_groups, n * raw**2) - 2 * center * _sum_by(codes, n_groups, n * raw)
+              + center**2 * m)
+    members = _sum_by(codes, n_groups, (n > 0).astype(float))  # I_s
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = (spread - members * s2[:, None]).sum(axis=1) / m.sum(axis=1)
+        k = s2 / a
+    return np.where((a > 0) & np.isfinite(k), k, np.inf)
+
+
+@dataclass(frozen=True)
+class _Groups:
+    level: np.ndarray  # reference level per item ("" for none)
+    label: np.ndarray  # reference group label per item
+    q: np.ndarray  # the reference group's q-value (NaN for none)
+    center: np.ndarray  # items x slots: the reference group's profile
+    k_group: np.ndarray  # credibility constant per item, around the group's profile
+    k_flat: np.ndarray  # and around a flat profile
+    tests: pd.DataFrame  # one row per tested group
+
+
+def _item_basics(t: _Tally):
+    """Overall rate, raw slot factors, within-slot variance, variance per demand."""
+    e_item = t.exposure.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rate = np.where(e_item > 0, t.volume.sum(axis=1) / e_item, 0.0)
+        raw = np.where(t.exposure > 0, t.volume / t.exposure / rate[:, None], 1.0)
+        sigma2 = np.nan_to_num(_within_variance(t)[0])
+        s2 = np.where(rate > 0, sigma2 * t.demands.sum(axis=1) / e_item / rate**2, 0.0)
+    return rate, np.where(np.isfinite(raw), raw, 1.0), sigma2, s2
+
+
+def _level_tests(codes, n_groups, t: _Tally, rate, sigma2, weights):
+    """Pooled test statistic, p-value, demands and profile per group of one level."""
+    vol = _sum_by(codes, n_groups, t.volume)
+    flat = _sum_by(codes, n_groups, t.exposure * rate[:, None])
+    var = _sum_by(codes, n_groups, t.exposure * sigma2[:, None])
+    dem = _sum_by(codes, n_groups, t.demands).sum(axis=1)
+    open_ = flat > 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        stat = np.where(open_ & (var > 0), (vol - flat) ** 2 / var, 0.0).sum(axis=1)
+        factor = _normalise(np.where(open_, vol / flat, 1.0), weights)
+    df = open_.sum(axis=1) - 1
+    p = np.where(df > 0, stats.chi2.sf(stat, np.maximum(df, 1)), 1.0)
+    return stat, p, dem, factor
+
+
+def _group_stage(panel, t: _Tally, eligible, weights, slot_names, *, group_demands) -> _Groups:
+    """Test every group, pick each item's reference group, its profile and ``k``."""
+    n_items, n_slots = t.exposure.shape
+    rate, raw, sigma2, s2 = _item_basics(t)
+    levels = []
+    for level, codes in _group_codes(panel):
+        codes = np.where(eligible & (rate > 0), codes, -1)
+        n_groups = int(codes.max()) + 1 if codes.size else 0
+        if n_groups == 0:
+            continue
+        stat, p, dem, factor = _level_tests(codes, n_groups, t, rate, sigma2, weights)
+        k = np.stack([_credibility_k(codes, n_groups, raw, t, s2, c)
+                      for c in (factor, np.ones_like(factor))], axis=1)
+        member = np.full(n_groups, 0)
+        valid = np.flatnonzero(codes >= 0)
+        member[codes[valid[::-1]]] = valid[::-1]  # first member of each group
+        levels.append((level, codes, stat, np.where(dem >= group_demands, p, np.nan),
+                       dem, factor, k, member))
+    q_all = benjamini_hochberg(np.concatenate([lv[3] for lv in levels])) if levels else None
+    out_level = np.full(n_items, "", dtype=object)
+    out_label = np.full(n_items, "", dtype=object)
+    out_q = np.full(n_items, np.nan)
+    center = np.ones((n_items, n_slots))
+    k_item = np.full((n_items, 2), np.inf)
+    open_ = np.ones(n_items, dtype=bool)  # no reference group chosen yet
+    frames, offset = [], 0
+    for level, codes, stat, p, dem, factor, k, member in levels:
+        q = q_all[offset: offset + len(p)]
+        offset += len(p)
+        labels = np.array([_group_label(panel, level, m) for m in member], dtype=object)
+        frame = pd.DataFrame({"level": level, "group": labels, "demands": dem.astype(np.int64),
+                              "statistic": stat, "p_value": p, "q_value": q})
+        frames.append(pd.concat([frame, pd.DataFrame(factor, columns=slot_names)], axis=1))
+        has = codes >= 0
+        first = has & open_ & np.isinf(k_item).all(axis=1)
+        k_item[first] = k[codes[first]]
+        take = open_ & has & (dem[np.maximum(codes, 0)] >= group_demands)
+        c = codes[take]
+        out_level[take], out_label[take], out_q[take] = level, labels[c], q[c]
+        center[take] = factor[c]
+        k_item[take] = k[c]
+        open_ &= ~take
+    tests = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+    return _Groups(out_level, out_label, out_q, center, k_item[:, 0], k_item[:, 1], tests)
+
+
+# ------------------------------------------------------------------------------ result
+@dataclass(frozen=True, eq=False)
+class ProfileTable:
+    """One profile kind for every item (rows in panel order).
+
+    ``factors`` is items x slots (1.0 where ``source`` is ``none``); ``slots``
+    maps the history's periods to slot indices. ``p_value``/``q_value`` are the
+    item's own test against a flat profile (NaN where not tested),
+    ``fit_q_value`` its test against the reference group's profile.
+    """
+
+    kind: str
+    slot_names: tuple[str, ...]
+    slots: np.ndarray
+    factors: np.ndarray
+    source: np.ndarray
+    group: np.ndarray
+    demands: np.ndarray
+    occurrence_statistic: np.ndarray
+    volume_statistic: np.ndarray
+    p_value: np.ndarray
+    q_value: np.ndarray
+    group_q_value: np.ndarray
+    fit_q_value: np.ndarray
+    credibility_k: np.ndarray
+
+    def take(self, idx: np.ndarray) -> ProfileTable:
+        per_item = {name: getattr(self, name)[idx] for name in self.__dataclass_fields__
+                    if name not in ("kind", "slot_names", "slots")}
+        return replace(self, **per_item)
+
+
+@dataclass(frozen=True, eq=False)
+class CalendarProfiles:
+    """Calendar profiles of a panel's items; see the module docstring for the rules.
+
+    Examples
+    --------
+    >>> periods = pd.period_range("2024-01-01", periods=14, freq="D")
+    >>> prof = estimate_profiles(DemandPanel(np.ones((2, 14)), items=pd.Index(["A", "B"]),
+    ...                                      periods=periods))
+    >>> prof.future_factors(3).shape
+    (2, 3)
+    """
+
+    items: pd.Index
+    periods: pd.Index
+    tables: tuple[ProfileTable, ...]
+    group_tests: pd.DataFrame
+    fdr: float
+
+    def _rows(self, rows) -> np.ndarray:
+        if rows is None:
+            return np.arange(len(self.items))
+        if isinstance(rows, slice):
+            return np.arange(len(self.items))[rows]
+        rows = np.asarray(rows)
+        if rows.dtype == bool:
+            return np.flatnonzero(rows)
+        if np.issubdtype(rows.dtype, np.integer):
+            return rows
+        idx = self.items.get_indexer(rows)
+        if (idx < 0).any():
+            raise InputError(f"unknown item {rows[idx < 0][0]!r}")
+        return idx
+
+    def _factors(self, rows, periods: pd.Index, slot_sets) -> np.ndarray:
+        idx = self._rows(rows)
+        out = np.ones((idx.size, len(periods)))
+        for table, slots in zip(self.tables, slot_sets):
+            out *= table.factors[idx][:, slots]
+        return out
+
+    def history_factors(self, rows=None) -> np.ndarray:
+        """Factors (items x history periods), 1.0 where no profile applies."""
+        return self._factors(rows, self.periods, [t.slots for t in self.tables])
+
+    def future_factors(self, horizon: int, rows=None) -> np.ndarray:
+        """Factors (items x horizon) for the periods after the history."""
+        if int(horizon) < 0:
+            raise InputError(f"horizon must be at least 0, got {horizon}")
+        future = future_calendar(self.periods, int(horizon))
+        return self._factors(rows, future, [calendar_slots(future, t.kind) for t in self.tables])
+
+    def subset(self, rows) -> CalendarProfiles:
+        """Profiles of the selected items (positions, boolean mask or labels)."""
+        idx = self._rows(rows)
+        return replace(self, items=self.items[idx], tables=tuple(t.take(idx) for t in self.tables))
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per item: per kind its source, group, tests and factors."""
+        cols: dict[str, object] = {}
+        for t in self.tables:
+            k = t.kind
+            cols.update({f"{k}_source": t.source, f"{k}_group": t.group,
+                         f"{k}_demands": t.demands, f"{k}_occurrence_statistic":
+                         t.occurrence_statistic, f"{k}_volume_statistic": t.volume_statistic,
+                         f"{k}_p_value": t.p_value, f"{k}_q_value": t.q_value,
+                         f"{k}_group_q_value": t.group_q_value,
+                         f"{k}_fit_q_value": t.fit_q_value})
+            cols.update({f"{k}_{name}": t.factors[:, j] for j, name in enumerate(t.slot_names)})
+        return pd.DataFrame(cols, index=self.items)
+
+    def __repr__(self) -> str:
+        parts = []
+        for t in self.tables:
+            own = int(sum(s.startswith("own") for s in t.source))
+            none = int((t.source == "none").sum())
+            parts.append(f"{t.kind}: {own} own, {len(t.source) - own - none} group, {none} none")
+        return f"CalendarProfiles({len(self.items)} items; {'; '.join(parts) or 'no profile'})"
+
+
+# ---------------------------------------------------------------------------- decision
+def _decide(t: _Tally, eligible, groups: _Groups, weights, *, fdr, min_demands, vol_demands):
+    """Sources and factors for one kind (rules in the module docstring)."""
+    occ, vol, p, _ = _item_tests(t, None, min_demands, vol_demands)
+    p = np.where(eligible, p, np.nan)
+    q = benjamini_hochberg(p)
+    own = q <= fdr
+    group_ok = groups.q <= fdr
+    _, _, _, p_fit = _item_tests(t, groups.center, 0.0, vol_demands)
+    p_fit = np.where(group_ok & eligible, p_fit, np.nan)
+    q_fit = benjamini_hochberg(p_fit)
+    counts = group_ok & ~(q_fit <= fdr)
+    _, raw, _, _ = _item_basics(t)
+    toward = np.where(counts[:, None], groups.center, 1.0)
+    with np.errstate(invalid="ignore"):
+        w = _slot_demands(t) / (_slot_demands(t) + np.where(group_ok, groups.k_group, groups.k_flat)[:, None])
+    w = np.where(np.isfinite(w), w, 0.0)
+    shrunk = _normalise(w * raw + (1.0 - w) * toward, weights)
+    factors = np.where(own[:, None], shrunk, np.where(counts[:, None], groups.center, 1.0))
+    level = groups.level.astype(str)
+    source = np.where(own, np.where(counts, "own shrunk toward " + level,
+                                    "own shrunk toward flat"), np.where(counts, level, "none"))
+    group = np.where(counts, groups.label, "")
+    return factors, source.astype(object), group.astype(object), occ, vol, p, q, q_fit
+
+
+def _kind_table(panel: DemandPanel, kind: str, options: dict) -> ProfileTable:
+    frequency = panel.frequency
+    slot_names = WEEKDAYS if kind == "weekday" else MONTHS
+    n_slots = len(slot_names)
+    slots = calendar_slots(panel.periods, kind)
+    weights = _cycle_weights(kind, frequency)
+    t = _tally(panel, slots, n_slots)
+    span = panel.n_periods - panel.start
+    need = 1 if kind == "weekday" else _TWO_YEARS[frequency]
+    eligible = (span >= need) & (t.demands.sum(axis=1) > 0)
+    groups = _group_stage(panel, t, eligible, weights, slot_names,
+                          group_demands=options["group_demands_per_slot"] * n_slots)
+    factors, source, group, occ, vol, p, q, q_fit = _decide(
+        t, eligible, groups, weights, fdr=options["fdr"],
+        min_demands=options["item_demands_per_slot"] * n_slots,
+        vol_demands=options["volume_demands_per_slot"] * n_slots)
+    table = ProfileTable(kind, slot_names, slots, factors, source, group,
+                         t.demands.sum(axis=1).astype(np.int64), occ, vol, p, q, groups.q,
+                         q_fit, np.where(groups.q <= options["fdr"], groups.k_group, groups.k_flat))
+    return table, groups.tests.assign(kind=kind)
+
+
+def _check_options(calendar, fdr, per_slot: dict) -> None:
+    if calendar not in ("auto", "none"):
+        raise InputError(f"--calendar must be 'auto' or 'none', got {calendar!r}")
+    if not (isinstance(fdr, (int, float)) and 0.0 < fdr < 1.0):
+        raise InputError(f"--calendar-fdr must be between 0 and 1 (exclusive), got {fdr!r}")
+    for name, value in per_slot.items():
+        if not (isinstance(value, (int, float)) and np.isfinite(value) and value >= 0):
+            raise InputError(f"calendar option {name} must be a number >= 0, got {value!r}")
+
+
+def estimate_profiles(
+    panel: DemandPanel,
+    *,
+    calendar: str = "auto",
+    fdr: float = 0.05,
+    item_demands_per_slot: float = 2.0,
+    volume_demands_per_slot: float = 30.0,
+    group_demands_per_slot: float = 20.0,
+) -> CalendarProfiles:
+    """Estimate and decide every item's calendar profiles.
+
+    Parameters
+    ----------
+    panel : DemandPanel
+    calendar : {"auto", "none"}
+        ``"none"`` gives every item a flat profile (factors of 1).
+    fdr : float
+        False discovery rate of every family of tests (Benjamini-Hochberg).
+    item_demands_per_slot : float
+        An item is tested with at least this many demands per slot on average.
+    volume_demands_per_slot : float
+        The volume test joins the occurrence test from this many demands per slot.
+    group_demands_per_slot : float
+        A group can be a reference group with at least this many demands per slot.
+
+    Returns
+    -------
+    CalendarProfiles
+
+    Examples
+    --------
+    >>> periods = pd.period_range("2024-01-01", periods=70, freq="D")
+    >>> week = np.tile([5., 5, 5, 5, 5, 0, 0], 10)[None, :]
+    >>> prof = estimate_profiles(DemandPanel(week, items=pd.Index(["A"]), periods=periods))
+    >>> prof.tables[0].source.tolist(), prof.future_factors(2).round(2).tolist()
+    (['own shrunk toward flat'], [[1.4, 1.4]])
+    """
+    per_slot = {"item_demands_per_slot": item_demands_per_slot,
+                "volume_demands_per_slot": volume_demands_per_slot,
+                "group_demands_per_slot": group_demands_per_slot}
+    _check_options(calendar, fdr, per_slot)
+    if not isinstance(panel, DemandPanel):
+        raise InputError("calendar profiles need a DemandPanel")
+    kinds = profile_kinds(panel.frequency) if calendar == "auto" else ()
+    built = [_kind_table(panel, kind, {"fdr": float(fdr), **per_slot}) for kind in kinds]
+    tests = pd.concat([b[1] for b in built], ignore_index=True) if built else pd.DataFrame()
+    return CalendarProfiles(panel.items, panel.periods, tuple(b[0] for b in built), tests,
+                            float(fdr))
