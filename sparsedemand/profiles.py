@@ -82,9 +82,10 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 from numba import njit
-from scipy import stats
+from scipy import sparse, stats
 
 from .errors import InputError
+from .methods.events import run_in_threads
 from .panel import DemandPanel
 
 __all__ = [
@@ -163,40 +164,62 @@ def _normalise(factors: np.ndarray, weights: np.ndarray) -> np.ndarray:
 
 # ---------------------------------------------------------------------------- tallies
 @njit(cache=True, nogil=True)
-def _tally_kernel(values, start, available, has_mask, slots, n_slots):
-    """Per item and slot: exposure, volume, squared volume, demands (in stock, from start)."""
-    n_items, n_periods = values.shape
-    out = np.zeros((n_items, n_slots, 4))
-    for i in range(n_items):
+def _tally_kernel(i0, i1, values, start, available, has_mask, cells, out):
+    """Rows i0..i1: per calendar cell exposure, volume, squared volume and demands.
+
+    Only in-stock periods from the item's first demand count.
+    """
+    n_periods = values.shape[1]
+    acc = np.zeros(out.shape[1] * 4)
+    for i in range(i0, i1):
+        acc[:] = 0.0
         for t in range(start[i], n_periods):
             if has_mask and not available[i, t]:
                 continue
             y = values[i, t]
-            s = slots[t]
-            out[i, s, 0] += 1.0
-            out[i, s, 1] += y
-            out[i, s, 2] += y * y
-            if y > 0:
-                out[i, s, 3] += 1.0
-    return out
+            c = cells[t] * 4
+            acc[c] += 1.0
+            acc[c + 1] += y
+            acc[c + 2] += y * y
+            acc[c + 3] += 1.0 if y > 0 else 0.0
+        for c in range(out.shape[1]):
+            for k in range(4):
+                out[i, c, k] = acc[c * 4 + k]
 
 
 @dataclass(frozen=True)
 class _Tally:
-    exposure: np.ndarray  # items x slots
+    exposure: np.ndarray  # items x slots: in-stock periods
     volume: np.ndarray
     squares: np.ndarray
     demands: np.ndarray
-
-    def rows(self, keep: np.ndarray) -> _Tally:
-        return _Tally(self.exposure[keep], self.volume[keep], self.squares[keep], self.demands[keep])
+    effective: np.ndarray  # exposure weighted by the item's other profile (else = exposure)
 
 
-def _tally(panel: DemandPanel, slots: np.ndarray, n_slots: int) -> _Tally:
+def _tallies(panel: DemandPanel, kinds: tuple[str, ...]) -> np.ndarray:
+    """One pass over the panel: items x weekday x month x 4 (weekday axis of 1 if not daily)."""
+    month = calendar_slots(panel.periods, "month")
+    week = calendar_slots(panel.periods, "weekday") if "weekday" in kinds else 0 * month
     has_mask = panel.available is not None
     mask = panel.available if has_mask else np.ones((1, 1), dtype=np.bool_)
-    out = _tally_kernel(panel.values, panel.start, mask, has_mask, slots, n_slots)
-    return _Tally(out[..., 0], out[..., 1], out[..., 2], out[..., 3])
+    n_week = 7 if "weekday" in kinds else 1
+    out = np.empty((panel.n_items, n_week * 12, 4))
+    run_in_threads(_tally_kernel, panel.n_items, panel.values, panel.start, mask, has_mask,
+                   week * 12 + month, out)
+    return out.reshape(panel.n_items, n_week, 12, 4)
+
+
+def _marginal(cube: np.ndarray, kind: str, weekday_factors=None) -> _Tally:
+    """The tally of one kind; months get the exposure weighted by the weekday factors."""
+    t = cube.sum(axis=2 if kind == "weekday" else 1)
+    exposure = t[..., 0]
+    effective = exposure
+    if kind == "month" and weekday_factors is not None:
+        effective = np.einsum("idm,id->im", cube[..., 0], weekday_factors)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            scale = exposure.sum(axis=1, keepdims=True) / effective.sum(axis=1, keepdims=True)
+        effective = effective * np.nan_to_num(scale)
+    return _Tally(exposure, t[..., 1], t[..., 2], t[..., 3], effective)
 
 
 def _within_variance(t: _Tally) -> tuple[np.ndarray, np.ndarray]:
@@ -250,7 +273,8 @@ def volume_test(volume, squares, exposure, profile=None) -> tuple[np.ndarray, np
     >>> round(float(t[0][0]), 3)
     4.0
     """
-    t = _Tally(*(np.atleast_2d(a).astype(float) for a in (exposure, volume, squares, volume)))
+    arrays = (np.atleast_2d(a).astype(float) for a in (exposure, volume, squares, volume, volume))
+    t = _Tally(*arrays)
     sigma2, df2 = _within_variance(t)
     e = t.exposure
     g = np.ones_like(e) if profile is None else np.broadcast_to(profile, e.shape)
@@ -267,6 +291,22 @@ def volume_test(volume, squares, exposure, profile=None) -> tuple[np.ndarray, np
     exact = (df1 > 0) & (sigma2 == 0) & (cell > 0)
     p = np.where(exact, 0.0, p)
     return np.where(ok | exact, f, np.nan), np.where(np.isfinite(p), p, 1.0)
+
+
+def holm(p: np.ndarray) -> np.ndarray:
+    """Holm's step-down adjusted p-values (family-wise error); NaN stays NaN.
+
+    Examples
+    --------
+    >>> holm(np.array([0.01, 0.04, 0.03])).round(3).tolist()
+    [0.03, 0.06, 0.06]
+    """
+    p = np.asarray(p, dtype=np.float64)
+    q = np.full(p.shape, np.nan)
+    ok = np.flatnonzero(np.isfinite(p))
+    order = ok[np.argsort(p[ok], kind="stable")]
+    q[order] = np.minimum(np.maximum.accumulate(p[order] * (ok.size - np.arange(ok.size))), 1.0)
+    return q
 
 
 def benjamini_hochberg(p: np.ndarray) -> np.ndarray:
@@ -291,8 +331,10 @@ def benjamini_hochberg(p: np.ndarray) -> np.ndarray:
 def _item_tests(t: _Tally, profile, min_demands: float, volume_demands: float):
     """Combined item test against ``profile`` (None = flat): statistics, p-values."""
     n = t.demands.sum(axis=1)
-    occ, p_occ = occurrence_test(t.demands, t.exposure, profile)
-    vol, p_vol = volume_test(t.volume, t.squares, t.exposure, profile)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        null = np.nan_to_num(t.effective / t.exposure) * (1.0 if profile is None else profile)
+    occ, p_occ = occurrence_test(t.demands, t.exposure, null)
+    vol, p_vol = volume_test(t.volume, t.squares, t.exposure, null)
     use_vol = n >= volume_demands
     p = np.where(use_vol, np.minimum(1.0, 2.0 * np.minimum(p_occ, p_vol)), p_occ)
     tested = n >= min_demands
@@ -301,39 +343,42 @@ def _item_tests(t: _Tally, profile, min_demands: float, volume_demands: float):
 
 
 # ------------------------------------------------------------------------------ groups
-def _group_codes(panel: DemandPanel) -> list[tuple[str, np.ndarray]]:
-    """Group codes per level (-1 where the item has no group there), specific first."""
-    have = {c for c in ("location", "category") if panel.attributes is not None
-            and c in panel.attributes.columns}
-    codes = {c: pd.factorize(panel.attribute(c), use_na_sentinel=True)[0] for c in have}
+@dataclass(frozen=True)
+class _Level:
+    name: str
+    codes: np.ndarray  # group per item, -1 for none
+    labels: np.ndarray  # label per group
+    onehot: sparse.csr_matrix  # groups x items
+
+
+def _levels(panel: DemandPanel) -> list[_Level]:
+    """Group levels, most specific first; a missing attribute skips its levels."""
+    have = [c for c in ("location", "category") if panel.attributes is not None
+            and c in panel.attributes.columns]
+    found = {c: pd.factorize(panel.attribute(c), use_na_sentinel=True) for c in have}
+    pairs = []
+    if len(have) == 2:
+        (loc, loc_u), (cat, cat_u) = found["location"], found["category"]
+        both = (loc >= 0) & (cat >= 0)
+        uniq, inv = np.unique(np.where(both, loc * len(cat_u) + cat, -1), return_inverse=True)
+        codes = np.where(both, inv - int(uniq[0] < 0), -1)
+        keys = uniq[uniq >= 0]
+        pairs.append((LEVELS[0], codes, [f"{loc_u[k // len(cat_u)]} / {cat_u[k % len(cat_u)]}"
+                                         for k in keys]))
+    pairs += [(c, found[c][0], [str(u) for u in found[c][1]]) for c in ("category", "location")
+              if c in found]
+    pairs.append((LEVELS[3], np.zeros(panel.n_items, dtype=np.int64), ["all items"]))
     out = []
-    if have == {"location", "category"}:
-        both = (codes["location"] >= 0) & (codes["category"] >= 0)
-        pair = np.where(both, codes["location"] * (codes["category"].max() + 1)
-                        + codes["category"], -1)
-        out.append((LEVELS[0], np.where(both, np.unique(pair, return_inverse=True)[1], -1)))
-    out += [(name, codes[name]) for name in ("category", "location") if name in have]
-    out.append((LEVELS[3], np.zeros(panel.n_items, dtype=np.int64)))
+    for name, codes, labels in pairs:
+        rows = np.flatnonzero(codes >= 0)
+        onehot = sparse.csr_matrix((np.ones(rows.size), (codes[rows], rows)),
+                                   shape=(len(labels), panel.n_items))
+        out.append(_Level(name, codes, np.array(labels, dtype=object), onehot))
     return out
 
 
-def _group_label(panel: DemandPanel, level: str, row: int) -> str:
-    if level == LEVELS[3]:
-        return "all items"
-    parts = ("location", "category") if level == LEVELS[0] else (level,)
-    return " / ".join(str(panel.attribute(c).iloc[row]) for c in parts)
-
-
-def _sum_by(codes: np.ndarray, n_groups: int, x: np.ndarray) -> np.ndarray:
-    """Column sums of ``x`` (items x slots) per group code (codes < 0 dropped)."""
-    keep = codes >= 0
-    cols = [np.bincount(codes[keep], weights=x[keep, j], minlength=n_groups)
-            for j in range(x.shape[1])]
-    return np.stack(cols, axis=1)
-
-
 def _slot_demands(t: _Tally) -> np.ndarray:
-    """Demands each slot would have at the item's overall demand rate: the weight of its factor.
+    """Demands of each slot at the item's overall demand rate: the weight of its factor.
 
     Observed demands would give a slot where the item never sells no weight at all.
     """
@@ -342,17 +387,13 @@ def _slot_demands(t: _Tally) -> np.ndarray:
         return np.nan_to_num(t.exposure * t.demands.sum(axis=1, keepdims=True) / e)
 
 
-def _credibility_k(codes, n_groups, raw, t: _Tally, s2_item, center) -> np.ndarray:
+def _credibility_k(sums: dict, center: np.ndarray) -> np.ndarray:
     """Buhlmann-Straub ``k = s2 / a`` per group around ``center`` (inf where a <= 0)."""
-    n = _slot_demands(t)
-    n_item = n.sum(axis=1, keepdims=True)
-    m = _sum_by(codes, n_groups, n)
-    s2 = _sum_by(codes, n_groups, n_item * s2_item[:, None])[:, 0] / np.maximum(m.sum(axis=1), 1.0)
-    spread = (_sum_by(codes, n_groups, n * raw**2) - 2 * center * _sum_by(codes, n_groups, n * raw)
-              + center**2 * m)
-    members = _sum_by(codes, n_groups, (n > 0).astype(float))  # I_s
+    m = sums["m"]
+    s2 = sums["m_s2"].sum(axis=1) / np.maximum(m.sum(axis=1), 1.0)
+    spread = sums["m_x2"] - 2 * center * sums["m_x"] + center**2 * m
     with np.errstate(invalid="ignore", divide="ignore"):
-        a = (spread - members * s2[:, None]).sum(axis=1) / m.sum(axis=1)
+        a = (spread - sums["members"] * s2[:, None]).sum(axis=1) / m.sum(axis=1)
         k = s2 / a
     return np.where((a > 0) & np.isfinite(k), k, np.inf)
 
@@ -373,70 +414,71 @@ def _item_basics(t: _Tally):
     e_item = t.exposure.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         rate = np.where(e_item > 0, t.volume.sum(axis=1) / e_item, 0.0)
-        raw = np.where(t.exposure > 0, t.volume / t.exposure / rate[:, None], 1.0)
+        raw = np.where(t.effective > 0, t.volume / t.effective / rate[:, None], 1.0)
         sigma2 = np.nan_to_num(_within_variance(t)[0])
         s2 = np.where(rate > 0, sigma2 * t.demands.sum(axis=1) / e_item / rate**2, 0.0)
     return rate, np.where(np.isfinite(raw), raw, 1.0), sigma2, s2
 
 
-def _level_tests(codes, n_groups, t: _Tally, rate, sigma2, weights):
+def _group_sums(t: _Tally, keep: np.ndarray) -> tuple[list[str], np.ndarray]:
+    """Item-level quantities that groups sum, side by side (items x blocks of slots)."""
+    rate, raw, sigma2, s2 = _item_basics(t)
+    m = _slot_demands(t)
+    blocks = {"volume": t.volume, "flat": t.effective * rate[:, None],
+              "var": t.exposure * sigma2[:, None], "demands": t.demands, "m": m,
+              "m_s2": m * s2[:, None], "m_x2": m * raw**2, "m_x": m * raw,
+              "members": (m > 0).astype(float)}
+    return list(blocks), np.hstack(list(blocks.values())) * keep[:, None]
+
+
+def _level_tests(sums: dict, weights):
     """Pooled test statistic, p-value, demands and profile per group of one level."""
-    vol = _sum_by(codes, n_groups, t.volume)
-    flat = _sum_by(codes, n_groups, t.exposure * rate[:, None])
-    var = _sum_by(codes, n_groups, t.exposure * sigma2[:, None])
-    dem = _sum_by(codes, n_groups, t.demands).sum(axis=1)
+    vol, flat, var = sums["volume"], sums["flat"], sums["var"]
     open_ = flat > 0
     with np.errstate(invalid="ignore", divide="ignore"):
         stat = np.where(open_ & (var > 0), (vol - flat) ** 2 / var, 0.0).sum(axis=1)
         factor = _normalise(np.where(open_, vol / flat, 1.0), weights)
     df = open_.sum(axis=1) - 1
     p = np.where(df > 0, stats.chi2.sf(stat, np.maximum(df, 1)), 1.0)
-    return stat, p, dem, factor
+    return stat, p, sums["demands"].sum(axis=1), factor
 
 
-def _group_stage(panel, t: _Tally, eligible, weights, slot_names, *, group_demands) -> _Groups:
+def _group_stage(levels, t: _Tally, eligible, weights, slot_names, *, group_demands) -> _Groups:
     """Test every group, pick each item's reference group, its profile and ``k``."""
     n_items, n_slots = t.exposure.shape
-    rate, raw, sigma2, s2 = _item_basics(t)
-    levels = []
-    for level, codes in _group_codes(panel):
-        codes = np.where(eligible & (rate > 0), codes, -1)
-        n_groups = int(codes.max()) + 1 if codes.size else 0
-        if n_groups == 0:
-            continue
-        stat, p, dem, factor = _level_tests(codes, n_groups, t, rate, sigma2, weights)
-        k = np.stack([_credibility_k(codes, n_groups, raw, t, s2, c)
-                      for c in (factor, np.ones_like(factor))], axis=1)
-        member = np.full(n_groups, 0)
-        valid = np.flatnonzero(codes >= 0)
-        member[codes[valid[::-1]]] = valid[::-1]  # first member of each group
-        levels.append((level, codes, stat, np.where(dem >= group_demands, p, np.nan),
-                       dem, factor, k, member))
-    q_all = benjamini_hochberg(np.concatenate([lv[3] for lv in levels])) if levels else None
+    keep = eligible & (t.volume.sum(axis=1) > 0)
+    names, stacked = _group_sums(t, keep.astype(float))
+    tested = []
+    for lv in levels:
+        summed = np.asarray(lv.onehot @ stacked)
+        sums = {name: summed[:, j * n_slots: (j + 1) * n_slots] for j, name in enumerate(names)}
+        stat, p, dem, factor = _level_tests(sums, weights)
+        k = np.stack([_credibility_k(sums, c) for c in (factor, np.ones_like(factor))], axis=1)
+        tested.append((lv, stat, np.where(dem >= group_demands, p, np.nan), dem, factor, k))
+    q_all = holm(np.concatenate([x[2] for x in tested]))
     out_level = np.full(n_items, "", dtype=object)
     out_label = np.full(n_items, "", dtype=object)
     out_q = np.full(n_items, np.nan)
     center = np.ones((n_items, n_slots))
     k_item = np.full((n_items, 2), np.inf)
-    open_ = np.ones(n_items, dtype=bool)  # no reference group chosen yet
+    open_ = keep.copy()  # no reference group chosen yet
     frames, offset = [], 0
-    for level, codes, stat, p, dem, factor, k, member in levels:
+    for lv, stat, p, dem, factor, k in tested:
         q = q_all[offset: offset + len(p)]
         offset += len(p)
-        labels = np.array([_group_label(panel, level, m) for m in member], dtype=object)
-        frame = pd.DataFrame({"level": level, "group": labels, "demands": dem.astype(np.int64),
+        frame = pd.DataFrame({"level": lv.name, "group": lv.labels, "demands": dem.astype(np.int64),
                               "statistic": stat, "p_value": p, "q_value": q})
         frames.append(pd.concat([frame, pd.DataFrame(factor, columns=slot_names)], axis=1))
-        has = codes >= 0
+        has = lv.codes >= 0
         first = has & open_ & np.isinf(k_item).all(axis=1)
-        k_item[first] = k[codes[first]]
-        take = open_ & has & (dem[np.maximum(codes, 0)] >= group_demands)
-        c = codes[take]
-        out_level[take], out_label[take], out_q[take] = level, labels[c], q[c]
+        k_item[first] = k[lv.codes[first]]
+        take = open_ & has & (dem[np.maximum(lv.codes, 0)] >= group_demands)
+        c = lv.codes[take]
+        out_level[take], out_label[take], out_q[take] = lv.name, lv.labels[c], q[c]
         center[take] = factor[c]
         k_item[take] = k[c]
         open_ &= ~take
-    tests = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+    tests = pd.concat(frames, ignore_index=True)
     return _Groups(out_level, out_label, out_q, center, k_item[:, 0], k_item[:, 1], tests)
 
 
@@ -578,25 +620,24 @@ def _decide(t: _Tally, eligible, groups: _Groups, weights, *, fdr, min_demands, 
     return factors, source.astype(object), group.astype(object), occ, vol, p, q, q_fit
 
 
-def _kind_table(panel: DemandPanel, kind: str, options: dict) -> ProfileTable:
+def _kind_table(panel: DemandPanel, kind: str, t: _Tally, levels, options: dict):
     frequency = panel.frequency
     slot_names = WEEKDAYS if kind == "weekday" else MONTHS
     n_slots = len(slot_names)
-    slots = calendar_slots(panel.periods, kind)
     weights = _cycle_weights(kind, frequency)
-    t = _tally(panel, slots, n_slots)
     span = panel.n_periods - panel.start
     need = 1 if kind == "weekday" else _TWO_YEARS[frequency]
     eligible = (span >= need) & (t.demands.sum(axis=1) > 0)
-    groups = _group_stage(panel, t, eligible, weights, slot_names,
+    groups = _group_stage(levels, t, eligible, weights, slot_names,
                           group_demands=options["group_demands_per_slot"] * n_slots)
     factors, source, group, occ, vol, p, q, q_fit = _decide(
         t, eligible, groups, weights, fdr=options["fdr"],
         min_demands=options["item_demands_per_slot"] * n_slots,
         vol_demands=options["volume_demands_per_slot"] * n_slots)
-    table = ProfileTable(kind, slot_names, slots, factors, source, group,
-                         t.demands.sum(axis=1).astype(np.int64), occ, vol, p, q, groups.q,
-                         q_fit, np.where(groups.q <= options["fdr"], groups.k_group, groups.k_flat))
+    k = np.where(groups.q <= options["fdr"], groups.k_group, groups.k_flat)
+    table = ProfileTable(kind, slot_names, calendar_slots(panel.periods, kind), factors, source,
+                         group, t.demands.sum(axis=1).astype(np.int64), occ, vol, p, q,
+                         groups.q, q_fit, k)
     return table, groups.tests.assign(kind=kind)
 
 
@@ -654,7 +695,13 @@ def estimate_profiles(
     if not isinstance(panel, DemandPanel):
         raise InputError("calendar profiles need a DemandPanel")
     kinds = profile_kinds(panel.frequency) if calendar == "auto" else ()
-    built = [_kind_table(panel, kind, {"fdr": float(fdr), **per_slot}) for kind in kinds]
+    options = {"fdr": float(fdr), **per_slot}
+    built, weekday = [], None
+    cube = _tallies(panel, kinds) if kinds else None
+    levels = _levels(panel) if kinds else None
+    for kind in kinds:
+        built.append(_kind_table(panel, kind, _marginal(cube, kind, weekday), levels, options))
+        weekday = built[-1][0].factors
     tests = pd.concat([b[1] for b in built], ignore_index=True) if built else pd.DataFrame()
     return CalendarProfiles(panel.items, panel.periods, tuple(b[0] for b in built), tests,
                             float(fdr))
