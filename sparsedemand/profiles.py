@@ -1,78 +1,54 @@
 """Multiplicative calendar profiles per item: estimation, shrinkage and the decision.
 
-A profile scales an item's flat level by a factor per calendar slot: ``weekday``
-(7 slots, Monday first) for daily panels, and ``month`` of year (12 slots) for
-day, week (the month holding the week's middle day) or month panels, the latter
-only for items with at least two full years (730 days, 104 weeks, 24 months)
-from their first demand. Integer calendars get no profile. Both kinds multiply.
+Slots: ``weekday`` (7, Monday first) in daily panels; ``month`` of year (12) in day,
+week (the month of the week's middle day) and month panels, only for items with two
+full years (730 days, 104 weeks, 24 months) from their first demand. Integer
+calendars get none. Kinds multiply; months are estimated and tested on exposure
+weighted by the item's weekday factors (history divided by the weekday profile).
 
-Estimation
-    Only in-stock periods from the item's first demand on count. For slot ``s``
-    let ``E_s`` be the exposure (in-stock periods), ``V_s`` the volume and
-    ``n_s`` the demands (periods with a sale). The raw factor is
-    ``(V_s / E_s) / (V / E)``; every profile is normalised so that one full
-    cycle averages to 1 (weekdays equally weighted; months by their days in
-    day and week panels, equally in month panels). The two kinds are estimated
-    from their own marginal tallies (a year holds almost equal shares of each
-    weekday per month). A group profile is ``sum_i V_is / sum_i E_is r_i``
-    (``r_i = V_i / E_i``): pooled volumes against what flat items would have
-    sold in the same in-stock periods.
+Estimation: in-stock periods from the first demand on. Per slot ``s``: exposure
+``E_s`` (in-stock periods, weekday-weighted for months), volume ``V_s``, demands
+``n_s``; ``r = V / E``. Raw factor ``x_s = V_s / (E_s r)``; a profile is normalised
+so one cycle averages 1 (weekdays alike; months by their days in day and week
+panels). Group profile: ``sum_i V_is / sum_i E_is r_i``, pooled volumes against
+what flat items would sell in the same in-stock periods.
 
-Tests (per item and kind, ``S`` slots with exposure, ``p = n / E``)
-    * occurrence: Pearson chi-square of the 2 x S table (sold / not sold by
-      slot), ``sum_s (n_s - e_s)^2 / (e_s (1 - e_s / E_s))`` with ``e_s`` the
-      demands expected under the null profile, ``S - 1`` degrees of freedom;
-    * volume (only with at least ``volume_demands_per_slot * S`` demands, where
-      slot means are close to normal): quasi-Poisson F test,
-      ``F = sum_s (V_s - m_s)^2 / (E_s sigma^2) / (S - 1)`` on ``(S - 1, E - S)``
-      degrees of freedom, ``m_s`` the volume expected under the null profile
-      and ``sigma^2`` the pooled within-slot variance of period demand (so
-      overdispersion is allowed). Against a flat profile this is one-way ANOVA.
-    * combined: ``p = min(1, 2 min(p_occurrence, p_volume))`` (Bonferroni) where
-      the volume test applies, else ``p_occurrence``; items with fewer than
-      ``item_demands_per_slot * S`` demands are not tested (``p = 1``).
-    * group: ``X^2 = sum_s (V_gs - m_gs)^2 / sum_i E_is sigma_i^2`` against
-      ``chi2(S - 1)``, ``m_gs = sum_i E_is r_i``: items are independent given
-      the profile, each with its own overdispersed variance.
-    * fit to the group: the same item tests with the group profile as the null
-      (volume test where it applies, occurrence test otherwise: a fast item's
-      cycle lives in its sizes, not in its occurrences).
-    Benjamini-Hochberg q-values are taken per kind over the item tests, over
-    the group tests and over the fit tests; a test is significant at
-    ``q <= fdr``.
+Tests (``S`` slots with exposure; ``e_s``, ``m_s`` demands and volume expected
+under the null profile, flat or the group's):
 
-Decision (per item and kind)
-    1. The reference group is the most specific level (location x category,
-       category, location, all items; a missing attribute skips its levels)
-       whose group has at least ``group_demands_per_slot * S`` demands. A
-       group that has the demands but shows no cycle is evidence against a
-       cycle for its members, so the search does not climb past it.
-    2. The group counts when its test is significant and the item's fit test
-       against it is not.
-    3. Item significant, group counts: ``own shrunk toward <level>``. Item
-       significant, group does not count: ``own shrunk toward flat``. Item not
-       significant, group counts: ``<level>``. Otherwise ``none``.
+* occurrence: ``X2 = sum_s (n_s - e_s)^2 / (e_s (1 - e_s / E_s))`` on ``S - 1``
+  df; against flat, Pearson's test of the 2 x S table sold / not sold by slot.
+* volume, from ``volume_demands_per_slot * S`` demands (slot means near normal):
+  quasi-Poisson ``F = sum_s (V_s - m_s)^2 / (E_s sigma2) / (S - 1)`` on
+  ``(S - 1, E - S)`` df, ``sigma2`` the within-slot variance of period demand
+  (overdispersion allowed); against flat it is one-way ANOVA by slot.
+* item: ``p = min(1, 2 min(p_occ, p_vol))`` (Bonferroni), ``p_occ`` alone without
+  the volume test; untested under ``item_demands_per_slot * S`` demands.
+* group: ``X2 = sum_s (V_gs - m_gs)^2 / sum_i E_is sigma2_i`` on ``S - 1`` df.
+* fit to the group: the volume test against the group's profile where it
+  applies, else the occurrence test (a fast item's cycle is in its sizes).
 
-Shrinkage (Buhlmann-Straub credibility, from memory: Buhlmann and Straub 1970;
-Klugman, Panjer and Willmot, *Loss Models*)
-    ``f_s = w_s x_s + (1 - w_s) c_s``, ``x_s`` the item's raw factor, ``c_s`` the
-    group's profile (flat where the group does not count), ``w_s = m_s / (m_s + k)``
-    with ``m_s = E_s n / E`` the slot's demands at the item's overall demand
-    rate (a slot where a slow item never sells still carries weight). The
-    variance of ``x_s`` is about ``s2 / m_s``; per reference group ``k = s2 / a``
-    with ``s2`` the demand-weighted mean of ``sigma_i^2 p_i / r_i^2`` and
-    ``a = sum_s [sum_i m_is (x_is - c_s)^2 - I_s s2] / sum_is m_is`` the
-    between-item variance around ``c`` (``I_s`` items with exposure in the
-    slot); ``k`` is infinite when ``a <= 0``. The result is normalised again.
+Item and fit tests get Benjamini-Hochberg q-values per kind; group tests Holm's
+family-wise adjustment, since one false group profile reaches all its members.
+Significant means adjusted p <= ``fdr``.
 
-Examples
---------
->>> import numpy as np, pandas as pd
->>> from sparsedemand.panel import DemandPanel
->>> periods = pd.period_range("2024-01-01", periods=28, freq="D")
->>> p = DemandPanel(np.ones((1, 28)), items=pd.Index(["A"]), periods=periods)
->>> estimate_profiles(p).tables[0].source.tolist()
-['none']
+Decision per item and kind: the reference group is the most specific level
+(location x category, category, location, all items; missing attributes skip
+levels) with ``group_demands_per_slot * S`` demands; a tested group without a
+cycle is evidence against one, so the search stops there. The group counts when
+significant and the item's fit test does not reject it. Item significant: ``own
+shrunk toward <level>`` if the group counts, else ``own shrunk toward flat``.
+Item not significant: ``<level>`` if the group counts, else ``none``.
+
+Shrinkage (Buhlmann-Straub credibility; from memory: Buhlmann and Straub 1970,
+Klugman, Panjer and Willmot, *Loss Models*): ``f_s = w_s x_s + (1 - w_s) c_s``,
+``c`` the group's profile (flat when it does not count), ``w_s = m_s / (m_s + k)``
+with ``m_s = E_s n / E`` the slot's demands at the item's mean demand rate (a
+slot where a slow item never sells still weighs). ``Var x_s ~ s2 / m_s``; per
+reference group ``k = s2 / a``, ``s2`` the demand-weighted mean of
+``sigma2_i p_i / r_i^2`` (``p_i = n_i / E_i``), ``a = sum_s [sum_i m_is (x_is -
+c_s)^2 - I_s s2] / sum_is m_is`` (``I_s`` items with weight in slot ``s``), ``k``
+infinite when ``a <= 0``. The result is normalised again.
 """
 
 from __future__ import annotations
@@ -88,10 +64,8 @@ from .errors import InputError
 from .methods.events import run_in_threads
 from .panel import DemandPanel
 
-__all__ = [
-    "CalendarProfiles", "ProfileTable", "estimate_profiles", "profile_kinds", "calendar_slots",
-    "future_calendar", "benjamini_hochberg", "occurrence_test", "volume_test",
-]
+__all__ = ["CalendarProfiles", "ProfileTable", "estimate_profiles", "profile_kinds",
+           "calendar_slots", "benjamini_hochberg", "holm", "occurrence_test", "volume_test"]
 
 WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 MONTHS = ("Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec")
@@ -100,7 +74,6 @@ _TWO_YEARS = {"day": 730, "week": 104, "month": 24}
 LEVELS = ("location x category", "category", "location", "all items")
 
 
-# ------------------------------------------------------------------------------ slots
 def profile_kinds(frequency: str | None) -> tuple[str, ...]:
     """Profile kinds that apply to a calendar frequency.
 
@@ -109,9 +82,8 @@ def profile_kinds(frequency: str | None) -> tuple[str, ...]:
     >>> profile_kinds("day"), profile_kinds("week"), profile_kinds(None)
     (('weekday', 'month'), ('month',), ())
     """
-    return {"day": ("weekday", "month"), "week": ("month",), "month": ("month",)}.get(
-        frequency or "", ()
-    )
+    kinds = {"day": ("weekday", "month"), "week": ("month",), "month": ("month",)}
+    return kinds.get(frequency or "", ())
 
 
 def calendar_slots(periods: pd.Index, kind: str) -> np.ndarray:
@@ -140,14 +112,6 @@ def calendar_slots(periods: pd.Index, kind: str) -> np.ndarray:
     return np.asarray(periods.month, dtype=np.int64) - 1
 
 
-def future_calendar(periods: pd.Index, horizon: int) -> pd.Index:
-    """The ``horizon`` periods after ``periods`` (as ``DemandPanel.future_periods``)."""
-    if isinstance(periods, pd.PeriodIndex) and len(periods):
-        return pd.period_range(periods[-1] + 1, periods=horizon, freq=periods.freq)
-    stop = int(periods[-1]) + 1 if len(periods) else 0
-    return pd.RangeIndex(stop, stop + horizon)
-
-
 def _cycle_weights(kind: str, frequency: str) -> np.ndarray:
     """Weight of each slot in one full cycle, for the normalisation."""
     if kind == "weekday" or frequency == "month":
@@ -162,7 +126,6 @@ def _normalise(factors: np.ndarray, weights: np.ndarray) -> np.ndarray:
     return np.where(np.isfinite(out), out, 1.0)
 
 
-# ---------------------------------------------------------------------------- tallies
 @njit(cache=True, nogil=True)
 def _tally_kernel(i0, i1, values, start, available, has_mask, cells, out):
     """Rows i0..i1: per calendar cell exposure, volume, squared volume and demands.
@@ -213,7 +176,7 @@ def _marginal(cube: np.ndarray, kind: str, weekday_factors=None) -> _Tally:
     """The tally of one kind; months get the exposure weighted by the weekday factors."""
     t = cube.sum(axis=2 if kind == "weekday" else 1)
     exposure = t[..., 0]
-    effective = exposure
+    effective = exposure  # months: weekday-weighted exposure, rescaled to the same total
     if kind == "month" and weekday_factors is not None:
         effective = np.einsum("idm,id->im", cube[..., 0], weekday_factors)
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -232,7 +195,6 @@ def _within_variance(t: _Tally) -> tuple[np.ndarray, np.ndarray]:
         return np.where(df > 0, ss / df, np.nan), df
 
 
-# ------------------------------------------------------------------------------ tests
 def occurrence_test(demands, exposure, profile=None) -> tuple[np.ndarray, np.ndarray]:
     """Pearson chi-square of demand occurrences by slot against a profile (flat by default).
 
@@ -287,8 +249,7 @@ def volume_test(volume, squares, exposure, profile=None) -> tuple[np.ndarray, np
         f = cell / sigma2[:] / np.maximum(df1, 1)
     ok = (df1 > 0) & (df2 > 0) & np.isfinite(f)
     p = np.where(ok, stats.f.sf(np.where(ok, f, 0.0), np.maximum(df1, 1), np.maximum(df2, 1)), 1.0)
-    # no spread within slots at all: any difference between slots is certain
-    exact = (df1 > 0) & (sigma2 == 0) & (cell > 0)
+    exact = (df1 > 0) & (sigma2 == 0) & (cell > 0)  # no spread within slots: differences certain
     p = np.where(exact, 0.0, p)
     return np.where(ok | exact, f, np.nan), np.where(np.isfinite(p), p, 1.0)
 
@@ -320,8 +281,6 @@ def benjamini_hochberg(p: np.ndarray) -> np.ndarray:
     p = np.asarray(p, dtype=np.float64)
     q = np.full(p.shape, np.nan)
     ok = np.flatnonzero(np.isfinite(p))
-    if ok.size == 0:
-        return q
     order = ok[np.argsort(p[ok], kind="stable")]
     ranked = p[order] * ok.size / np.arange(1, ok.size + 1)
     q[order] = np.minimum(np.minimum.accumulate(ranked[::-1])[::-1], 1.0)
@@ -342,7 +301,6 @@ def _item_tests(t: _Tally, profile, min_demands: float, volume_demands: float):
             np.where(tested, p, np.nan), np.where(tested & use_vol, p_vol, p_occ))
 
 
-# ------------------------------------------------------------------------------ groups
 @dataclass(frozen=True)
 class _Level:
     name: str
@@ -456,41 +414,36 @@ def _group_stage(levels, t: _Tally, eligible, weights, slot_names, *, group_dema
         k = np.stack([_credibility_k(sums, c) for c in (factor, np.ones_like(factor))], axis=1)
         tested.append((lv, stat, np.where(dem >= group_demands, p, np.nan), dem, factor, k))
     q_all = holm(np.concatenate([x[2] for x in tested]))
+    q_split = np.split(q_all, np.cumsum([len(x[2]) for x in tested])[:-1])
     out_level = np.full(n_items, "", dtype=object)
     out_label = np.full(n_items, "", dtype=object)
     out_q = np.full(n_items, np.nan)
     center = np.ones((n_items, n_slots))
     k_item = np.full((n_items, 2), np.inf)
     open_ = keep.copy()  # no reference group chosen yet
-    frames, offset = [], 0
-    for lv, stat, p, dem, factor, k in tested:
-        q = q_all[offset: offset + len(p)]
-        offset += len(p)
+    frames = []
+    for (lv, stat, p, dem, factor, k), q in zip(tested, q_split):
         frame = pd.DataFrame({"level": lv.name, "group": lv.labels, "demands": dem.astype(np.int64),
                               "statistic": stat, "p_value": p, "q_value": q})
         frames.append(pd.concat([frame, pd.DataFrame(factor, columns=slot_names)], axis=1))
-        has = lv.codes >= 0
-        first = has & open_ & np.isinf(k_item).all(axis=1)
-        k_item[first] = k[lv.codes[first]]
-        take = open_ & has & (dem[np.maximum(lv.codes, 0)] >= group_demands)
+        take = open_ & (lv.codes >= 0) & (dem[np.maximum(lv.codes, 0)] >= group_demands)
         c = lv.codes[take]
         out_level[take], out_label[take], out_q[take] = lv.name, lv.labels[c], q[c]
         center[take] = factor[c]
         k_item[take] = k[c]
         open_ &= ~take
+    k_item[open_] = tested[-1][5][0]  # no reference group: all items (the last level)
     tests = pd.concat(frames, ignore_index=True)
     return _Groups(out_level, out_label, out_q, center, k_item[:, 0], k_item[:, 1], tests)
 
 
-# ------------------------------------------------------------------------------ result
 @dataclass(frozen=True, eq=False)
 class ProfileTable:
     """One profile kind for every item (rows in panel order).
 
-    ``factors`` is items x slots (1.0 where ``source`` is ``none``); ``slots``
-    maps the history's periods to slot indices. ``p_value``/``q_value`` are the
-    item's own test against a flat profile (NaN where not tested),
-    ``fit_q_value`` its test against the reference group's profile.
+    ``factors``: items x slots (1.0 where ``source`` is ``none``); ``slots``: the
+    history's slot indices; ``p_value``/``q_value``: the item's test against flat
+    (NaN if untested); ``fit_q_value``: its test against the group's profile.
     """
 
     kind: str
@@ -534,15 +487,11 @@ class CalendarProfiles:
     fdr: float
 
     def _rows(self, rows) -> np.ndarray:
-        if rows is None:
-            return np.arange(len(self.items))
-        if isinstance(rows, slice):
-            return np.arange(len(self.items))[rows]
+        if rows is None or isinstance(rows, slice):
+            return np.arange(len(self.items))[rows or slice(None)]
         rows = np.asarray(rows)
-        if rows.dtype == bool:
-            return np.flatnonzero(rows)
-        if np.issubdtype(rows.dtype, np.integer):
-            return rows
+        if rows.dtype == bool or np.issubdtype(rows.dtype, np.integer):
+            return np.arange(len(self.items))[rows]
         idx = self.items.get_indexer(rows)
         if (idx < 0).any():
             raise InputError(f"unknown item {rows[idx < 0][0]!r}")
@@ -563,7 +512,9 @@ class CalendarProfiles:
         """Factors (items x horizon) for the periods after the history."""
         if int(horizon) < 0:
             raise InputError(f"horizon must be at least 0, got {horizon}")
-        future = future_calendar(self.periods, int(horizon))
+        if not self.tables:  # no calendar profile: the periods need not be calendar periods
+            return np.ones((self._rows(rows).size, int(horizon)))
+        future = pd.period_range(self.periods[-1] + 1, periods=int(horizon), freq=self.periods.freq)
         return self._factors(rows, future, [calendar_slots(future, t.kind) for t in self.tables])
 
     def subset(self, rows) -> CalendarProfiles:
@@ -575,14 +526,10 @@ class CalendarProfiles:
         """One row per item: per kind its source, group, tests and factors."""
         cols: dict[str, object] = {}
         for t in self.tables:
-            k = t.kind
-            cols.update({f"{k}_source": t.source, f"{k}_group": t.group,
-                         f"{k}_demands": t.demands, f"{k}_occurrence_statistic":
-                         t.occurrence_statistic, f"{k}_volume_statistic": t.volume_statistic,
-                         f"{k}_p_value": t.p_value, f"{k}_q_value": t.q_value,
-                         f"{k}_group_q_value": t.group_q_value,
-                         f"{k}_fit_q_value": t.fit_q_value})
-            cols.update({f"{k}_{name}": t.factors[:, j] for j, name in enumerate(t.slot_names)})
+            names = ("source", "group", "demands", "occurrence_statistic", "volume_statistic",
+                     "p_value", "q_value", "group_q_value", "fit_q_value")
+            cols.update({f"{t.kind}_{n}": getattr(t, n) for n in names})
+            cols.update({f"{t.kind}_{n}": t.factors[:, j] for j, n in enumerate(t.slot_names)})
         return pd.DataFrame(cols, index=self.items)
 
     def __repr__(self) -> str:
@@ -594,7 +541,6 @@ class CalendarProfiles:
         return f"CalendarProfiles({len(self.items)} items; {'; '.join(parts) or 'no profile'})"
 
 
-# ---------------------------------------------------------------------------- decision
 def _decide(t: _Tally, eligible, groups: _Groups, weights, *, fdr, min_demands, vol_demands):
     """Sources and factors for one kind (rules in the module docstring)."""
     occ, vol, p, _ = _item_tests(t, None, min_demands, vol_demands)
@@ -606,35 +552,31 @@ def _decide(t: _Tally, eligible, groups: _Groups, weights, *, fdr, min_demands, 
     p_fit = np.where(group_ok & eligible, p_fit, np.nan)
     q_fit = benjamini_hochberg(p_fit)
     counts = group_ok & ~(q_fit <= fdr)
-    _, raw, _, _ = _item_basics(t)
+    raw, m = _item_basics(t)[1], _slot_demands(t)
     toward = np.where(counts[:, None], groups.center, 1.0)
+    k = np.where(counts, groups.k_group, groups.k_flat)
     with np.errstate(invalid="ignore"):
-        w = _slot_demands(t) / (_slot_demands(t) + np.where(group_ok, groups.k_group, groups.k_flat)[:, None])
-    w = np.where(np.isfinite(w), w, 0.0)
+        w = np.nan_to_num(m / (m + k[:, None]), nan=0.0)
     shrunk = _normalise(w * raw + (1.0 - w) * toward, weights)
     factors = np.where(own[:, None], shrunk, np.where(counts[:, None], groups.center, 1.0))
     level = groups.level.astype(str)
     source = np.where(own, np.where(counts, "own shrunk toward " + level,
                                     "own shrunk toward flat"), np.where(counts, level, "none"))
     group = np.where(counts, groups.label, "")
-    return factors, source.astype(object), group.astype(object), occ, vol, p, q, q_fit
+    return factors, source.astype(object), group.astype(object), occ, vol, p, q, q_fit, k
 
 
 def _kind_table(panel: DemandPanel, kind: str, t: _Tally, levels, options: dict):
-    frequency = panel.frequency
     slot_names = WEEKDAYS if kind == "weekday" else MONTHS
-    n_slots = len(slot_names)
-    weights = _cycle_weights(kind, frequency)
-    span = panel.n_periods - panel.start
-    need = 1 if kind == "weekday" else _TWO_YEARS[frequency]
-    eligible = (span >= need) & (t.demands.sum(axis=1) > 0)
+    n_slots, weights = len(slot_names), _cycle_weights(kind, panel.frequency)
+    need = 1 if kind == "weekday" else _TWO_YEARS[panel.frequency]
+    eligible = (panel.n_periods - panel.start >= need) & (t.demands.sum(axis=1) > 0)
     groups = _group_stage(levels, t, eligible, weights, slot_names,
                           group_demands=options["group_demands_per_slot"] * n_slots)
-    factors, source, group, occ, vol, p, q, q_fit = _decide(
+    factors, source, group, occ, vol, p, q, q_fit, k = _decide(
         t, eligible, groups, weights, fdr=options["fdr"],
         min_demands=options["item_demands_per_slot"] * n_slots,
         vol_demands=options["volume_demands_per_slot"] * n_slots)
-    k = np.where(groups.q <= options["fdr"], groups.k_group, groups.k_flat)
     table = ProfileTable(kind, slot_names, calendar_slots(panel.periods, kind), factors, source,
                          group, t.demands.sum(axis=1).astype(np.int64), occ, vol, p, q,
                          groups.q, q_fit, k)
@@ -644,10 +586,11 @@ def _kind_table(panel: DemandPanel, kind: str, t: _Tally, levels, options: dict)
 def _check_options(calendar, fdr, per_slot: dict) -> None:
     if calendar not in ("auto", "none"):
         raise InputError(f"--calendar must be 'auto' or 'none', got {calendar!r}")
-    if not (isinstance(fdr, (int, float)) and 0.0 < fdr < 1.0):
+    if isinstance(fdr, bool) or not (isinstance(fdr, (int, float)) and 0.0 < fdr < 1.0):
         raise InputError(f"--calendar-fdr must be between 0 and 1 (exclusive), got {fdr!r}")
     for name, value in per_slot.items():
-        if not (isinstance(value, (int, float)) and np.isfinite(value) and value >= 0):
+        if isinstance(value, bool) or not (isinstance(value, (int, float))
+                                           and np.isfinite(value) and value >= 0):
             raise InputError(f"calendar option {name} must be a number >= 0, got {value!r}")
 
 
@@ -668,7 +611,8 @@ def estimate_profiles(
     calendar : {"auto", "none"}
         ``"none"`` gives every item a flat profile (factors of 1).
     fdr : float
-        False discovery rate of every family of tests (Benjamini-Hochberg).
+        False discovery rate of the item and fit tests (Benjamini-Hochberg) and
+        family-wise error rate of the group tests (Holm).
     item_demands_per_slot : float
         An item is tested with at least this many demands per slot on average.
     volume_demands_per_slot : float
@@ -697,8 +641,7 @@ def estimate_profiles(
     kinds = profile_kinds(panel.frequency) if calendar == "auto" else ()
     options = {"fdr": float(fdr), **per_slot}
     built, weekday = [], None
-    cube = _tallies(panel, kinds) if kinds else None
-    levels = _levels(panel) if kinds else None
+    cube, levels = (_tallies(panel, kinds), _levels(panel)) if kinds else (None, None)
     for kind in kinds:
         built.append(_kind_table(panel, kind, _marginal(cube, kind, weekday), levels, options))
         weekday = built[-1][0].factors
