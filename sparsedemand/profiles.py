@@ -32,27 +32,31 @@ Item and fit tests get Benjamini-Hochberg q-values per kind; group tests Holm's
 family-wise adjustment, since one false group profile reaches all its members.
 Significant means adjusted p <= ``fdr``.
 
-Decision per item and kind: the reference group is the most specific level
-(location x category, category, location, all items; missing attributes skip
-levels) with ``group_demands_per_slot * S`` demands; a tested group without a
-cycle is evidence against one, so the search stops there. The group counts when
-significant and the item's fit test does not reject it. Item significant: ``own
-shrunk toward <level>`` if the group counts, else ``own shrunk toward flat``.
-Item not significant: ``<level>`` if the group counts, else ``none``.
+Decision per item and kind: groups are split into slow and frequent items (a sale
+in at least half the in-stock periods), whose cycles differ in kind (occurrences
+against sizes) and whose volumes would swamp the slow ones. The reference group
+is the most specific level (location x category, category, location, all items;
+missing attributes skip levels) with ``group_demands_per_slot * S`` demands; a
+tested group without a cycle is evidence against one: the search stops there.
+The group counts when significant and the item's fit test does not reject it.
+Item significant: ``own shrunk toward <level>`` if the group counts, else ``own
+shrunk toward flat``. Not significant: ``<level>`` if the group counts, else ``none``.
 
-Shrinkage (Buhlmann-Straub credibility; from memory: Buhlmann and Straub 1970,
-Klugman, Panjer and Willmot, *Loss Models*): ``f_s = w_s x_s + (1 - w_s) c_s``,
-``c`` the group's profile (flat when it does not count), ``w_s = m_s / (m_s + k)``
-with ``m_s = E_s n / E`` the slot's demands at the item's mean demand rate (a
-slot where a slow item never sells still weighs). ``Var x_s ~ s2 / m_s``; per
+Shrinkage (Buhlmann-Straub credibility with a count-type variance, as in the
+Poisson-gamma model; from memory: Buhlmann and Straub 1970, Klugman, Panjer and
+Willmot, *Loss Models*): ``f_s = w_s x_s + (1 - w_s) c_s``, ``c`` the group's
+profile (flat when it does not count), ``w_s = m_s / (m_s + k c_s)`` with
+``m_s = E_s n / E`` the slot's demands at the item's mean demand rate (a slot
+where a slow item never sells still weighs). ``Var x_s ~ c_s s2 / m_s``: per
 reference group ``k = s2 / a``, ``s2`` the demand-weighted mean of
 ``sigma2_i p_i / r_i^2`` (``p_i = n_i / E_i``), ``a = sum_s [sum_i m_is (x_is -
-c_s)^2 - I_s s2] / sum_is m_is`` (``I_s`` items with weight in slot ``s``), ``k``
-infinite when ``a <= 0``. The result is normalised again.
+c_s)^2 - I_s c_s s2] / sum_is m_is`` (``I_s`` items with weight in slot ``s``),
+``k`` infinite when ``a <= 0``. The result is normalised again.
 """
 
 from __future__ import annotations
 
+from collections import namedtuple
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -120,9 +124,8 @@ def _cycle_weights(kind: str, frequency: str) -> np.ndarray:
 
 
 def _normalise(factors: np.ndarray, weights: np.ndarray) -> np.ndarray:
-    mean = factors @ weights / weights.sum()
     with np.errstate(invalid="ignore", divide="ignore"):
-        out = factors / mean[:, None]
+        out = factors / (factors @ weights / weights.sum())[:, None]
     return np.where(np.isfinite(out), out, 1.0)
 
 
@@ -301,33 +304,27 @@ def _item_tests(t: _Tally, profile, min_demands: float, volume_demands: float):
             np.where(tested, p, np.nan), np.where(tested & use_vol, p_vol, p_occ))
 
 
-@dataclass(frozen=True)
-class _Level:
-    name: str
-    codes: np.ndarray  # group per item, -1 for none
-    labels: np.ndarray  # label per group
-    onehot: sparse.csr_matrix  # groups x items
+_Level = namedtuple("_Level", "name codes labels onehot")  # onehot: groups x items
 
 
-def _levels(panel: DemandPanel) -> list[_Level]:
-    """Group levels, most specific first; a missing attribute skips its levels."""
+def _levels(panel: DemandPanel, frequent: np.ndarray) -> list[_Level]:
+    """Group levels, most specific first, each split into slow and frequent items."""
     have = [c for c in ("location", "category") if panel.attributes is not None
             and c in panel.attributes.columns]
     found = {c: pd.factorize(panel.attribute(c), use_na_sentinel=True) for c in have}
     pairs = []
     if len(have) == 2:
-        (loc, loc_u), (cat, cat_u) = found["location"], found["category"]
-        both = (loc >= 0) & (cat >= 0)
-        uniq, inv = np.unique(np.where(both, loc * len(cat_u) + cat, -1), return_inverse=True)
-        codes = np.where(both, inv - int(uniq[0] < 0), -1)
-        keys = uniq[uniq >= 0]
-        pairs.append((LEVELS[0], codes, [f"{loc_u[k // len(cat_u)]} / {cat_u[k % len(cat_u)]}"
-                                         for k in keys]))
+        both = (found["location"][0] >= 0) & (found["category"][0] >= 0)
+        loc, cat = (panel.attribute(c).astype(str) for c in ("location", "category"))
+        codes, uniq = pd.factorize((loc + " / " + cat).where(both), use_na_sentinel=True)
+        pairs.append((LEVELS[0], codes, [str(u) for u in uniq]))
     pairs += [(c, found[c][0], [str(u) for u in found[c][1]]) for c in ("category", "location")
               if c in found]
     pairs.append((LEVELS[3], np.zeros(panel.n_items, dtype=np.int64), ["all items"]))
     out = []
     for name, codes, labels in pairs:
+        codes = np.where(codes >= 0, 2 * codes + frequent, -1)
+        labels = [f"{label} / {kind}" for label in labels for kind in ("slow", "frequent")]
         rows = np.flatnonzero(codes >= 0)
         onehot = sparse.csr_matrix((np.ones(rows.size), (codes[rows], rows)),
                                    shape=(len(labels), panel.n_items))
@@ -346,12 +343,12 @@ def _slot_demands(t: _Tally) -> np.ndarray:
 
 
 def _credibility_k(sums: dict, center: np.ndarray) -> np.ndarray:
-    """Buhlmann-Straub ``k = s2 / a`` per group around ``center`` (inf where a <= 0)."""
+    """``k = s2 / a`` per group around ``center`` (inf where a <= 0); slot ``s`` uses ``k c_s``."""
     m = sums["m"]
     s2 = sums["m_s2"].sum(axis=1) / np.maximum(m.sum(axis=1), 1.0)
     spread = sums["m_x2"] - 2 * center * sums["m_x"] + center**2 * m
     with np.errstate(invalid="ignore", divide="ignore"):
-        a = (spread - sums["members"] * s2[:, None]).sum(axis=1) / m.sum(axis=1)
+        a = (spread - sums["members"] * center * s2[:, None]).sum(axis=1) / m.sum(axis=1)
         k = s2 / a
     return np.where((a > 0) & np.isfinite(k), k, np.inf)
 
@@ -432,7 +429,7 @@ def _group_stage(levels, t: _Tally, eligible, weights, slot_names, *, group_dema
         center[take] = factor[c]
         k_item[take] = k[c]
         open_ &= ~take
-    k_item[open_] = tested[-1][5][0]  # no reference group: all items (the last level)
+    k_item[open_] = tested[-1][5][levels[-1].codes[open_]]  # else the last level: all items
     tests = pd.concat(frames, ignore_index=True)
     return _Groups(out_level, out_label, out_q, center, k_item[:, 0], k_item[:, 1], tests)
 
@@ -556,7 +553,7 @@ def _decide(t: _Tally, eligible, groups: _Groups, weights, *, fdr, min_demands, 
     toward = np.where(counts[:, None], groups.center, 1.0)
     k = np.where(counts, groups.k_group, groups.k_flat)
     with np.errstate(invalid="ignore"):
-        w = np.nan_to_num(m / (m + k[:, None]), nan=0.0)
+        w = np.nan_to_num(m / (m + k[:, None] * toward), nan=0.0)
     shrunk = _normalise(w * raw + (1.0 - w) * toward, weights)
     factors = np.where(own[:, None], shrunk, np.where(counts[:, None], groups.center, 1.0))
     level = groups.level.astype(str)
@@ -641,7 +638,10 @@ def estimate_profiles(
     kinds = profile_kinds(panel.frequency) if calendar == "auto" else ()
     options = {"fdr": float(fdr), **per_slot}
     built, weekday = [], None
-    cube, levels = (_tallies(panel, kinds), _levels(panel)) if kinds else (None, None)
+    cube = _tallies(panel, kinds) if kinds else None
+    if kinds:  # items selling in at least half their in-stock periods are "frequent"
+        n_e = cube[..., 3].sum(axis=(1, 2)), cube[..., 0].sum(axis=(1, 2))
+        levels = _levels(panel, (n_e[0] >= 0.5 * np.maximum(n_e[1], 1)).astype(np.int64))
     for kind in kinds:
         built.append(_kind_table(panel, kind, _marginal(cube, kind, weekday), levels, options))
         weekday = built[-1][0].factors

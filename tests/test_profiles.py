@@ -1,4 +1,4 @@
-"""Calendar profiles: the tests against scipy, hand-worked factors, and simulations with known truth."""
+"""Calendar profiles: tests against scipy, hand-worked factors, simulations with known truth."""
 from __future__ import annotations
 
 import numpy as np
@@ -67,7 +67,8 @@ def test_occurrence_test_against_a_flat_profile_is_pearsons_2_by_s_table():
 def test_occurrence_test_against_a_profile_by_hand():
     # Hand computation: 12 demands, exposures 10 and 20, profile (2, 1): expected demands are
     # 12 * 20/40 = 6 and 6, rates 0.6 and 0.3; X2 = 4/(6*0.4) + 4/(6*0.7) on 1 df.
-    stat, p = occurrence_test(np.array([[8.0, 4.0]]), np.array([[10.0, 20.0]]), np.array([2.0, 1.0]))
+    stat, p = occurrence_test(np.array([[8.0, 4.0]]), np.array([[10.0, 20.0]]),
+                              np.array([2.0, 1.0]))
     assert stat[0] == pytest.approx(4 / 2.4 + 4 / 4.2)
     assert p[0] == pytest.approx(stats.chi2.sf(4 / 2.4 + 4 / 4.2, 1))
 
@@ -104,12 +105,14 @@ def test_benjamini_hochberg_and_holm_against_scipy_and_statsmodels():
     assert np.allclose(holm(p), multipletests(p, method="holm")[1])
     with_nan = np.array([0.01, np.nan, 0.04, 0.03])
     q = benjamini_hochberg(with_nan)
-    assert np.isnan(q[1]) and np.allclose(q[[0, 2, 3]], stats.false_discovery_control([0.01, 0.04, 0.03]))
+    assert np.isnan(q[1])
+    assert np.allclose(q[[0, 2, 3]], stats.false_discovery_control([0.01, 0.04, 0.03]))
 
 
 # -------------------------------------------------------------------------- slots and factors
 def test_slots_of_days_weeks_and_months():
-    # 2024-01-01 was a Monday (calendar fact); the week 2024-01-29..02-04 has its Thursday in February.
+    # 2024-01-01 was a Monday (calendar fact); the week 2024-01-29..02-04 has its Thursday
+    # in February.
     assert calendar_slots(_days(8), "weekday").tolist() == [0, 1, 2, 3, 4, 5, 6, 0]
     weeks = pd.period_range("2024-01-22", periods=3, freq="W-SUN")
     assert calendar_slots(weeks, "month").tolist() == [0, 1, 1]
@@ -202,6 +205,23 @@ def test_slow_items_in_a_cycled_group_borrow_the_group_profile():
                or s.startswith("own shrunk toward") for s in young)
     assert all(s != "none" for s in young)
     assert np.all(table.factors[:5, 6] < 0.8)  # the group's quiet Sunday
+
+
+@pytest.mark.parametrize("seed", [21, 22])
+def test_slow_items_keep_their_cycle_beside_flat_frequent_items(seed):
+    # Simulation with known truth: one category, frequent items selling flat every day and
+    # slow items following the working week; the frequent volumes must not flatten the
+    # slow items' profile (groups are split by demand frequency).
+    rng = np.random.default_rng(seed)
+    dow = np.asarray(_days(728).day_of_week)
+    week = WEEK / WEEK.mean()
+    frequent = rng.poisson(20.0, (30, 728)).astype(float)
+    occurs = rng.random((150, 728)) < 0.12 * week[dow]
+    slow = np.where(occurs, 1.0 + rng.poisson(1.0, (150, 728)), 0.0)
+    attrs = pd.DataFrame({"category": ["x"] * 180})
+    table = estimate_profiles(_panel(np.vstack([frequent, slow]), attributes=attrs)).tables[0]
+    assert np.abs(np.median(table.factors[30:], axis=0) - week).max() < 0.1
+    assert np.abs(np.median(table.factors[:30], axis=0) - 1.0).max() < 0.05
 
 
 def test_an_item_that_contradicts_its_group_does_not_get_the_group_profile():
